@@ -117,6 +117,17 @@ def print_run_summary(summary: dict, out: Path) -> None:
 
 def cmd_run(args) -> int:
     scenario = load_scenario(args.scenario)
+    if args.dry_run:
+        from .solvers import solver_for
+        from .solvers.base import available_memory
+
+        estimate = solver_for(scenario).estimate()
+        print(f"{scenario.title}: method {scenario.run.method} would use {estimate.describe()}; "
+              f"{available_memory() / 2**30:.3g} GiB available"
+              + (f"; size set by {', '.join(estimate.keys)}" if estimate.keys else ""))
+        return 0
+    if args.out is None:
+        raise UsageError("run: --out DIR is required (or --dry-run)")
     out = Path(args.out)
     summary = run_to_folder(scenario, out, check=args.check, force=args.force,
                             progress=sys.stderr.isatty())
@@ -179,8 +190,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("run", help="time evolution with the scenario's run.method")
     p.add_argument("scenario")
-    p.add_argument("--out", required=True, help="output folder")
+    p.add_argument("--out", help="output folder")
     p.add_argument("--check", action="store_true", help="rerun refined and report convergence")
+    p.add_argument("--dry-run", action="store_true", help="print the memory and work estimate only")
     p.add_argument("--force", action="store_true", help="replace an existing output folder")
     p.set_defaults(func=cmd_run)
 

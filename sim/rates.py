@@ -266,6 +266,16 @@ def rest_rate(scenario, model: str | None = None) -> float:
     return float(template_rate(scenario, 0.0, model))
 
 
+def rest_emitted_momentum(scenario) -> float | None:
+    """|k| of the quantum a detector at rest emits (no cutoff); None if it cannot emit."""
+    com = model_for(scenario)
+    f = scenario.field
+    free = Field(f.dimensions, f.mass, f.smearing, np.inf, f.temperature)
+    roots = bracketed_roots(collinear_mismatch(com, free, EMISSION, 0.0, +1),
+                            reach(com, free, EMISSION, 0.0))
+    return roots[0] if roots else None
+
+
 def template_grid(scenario, points: int = 41) -> np.ndarray:
     """Momenta covering the packet (+-4 sigma_p about the mean; magnitudes >= 0 in 3D)."""
     packet = packet_for(scenario)

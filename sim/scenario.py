@@ -433,7 +433,34 @@ def load_scenario(scenario: str | Path | Mapping[str, Any] | Scenario) -> Scenar
     scenario_obj = _build(tables, numeric.get("title", "untitled scenario"), raw, units)
     if scenario_obj.coupling.lifetime is not None:
         scenario_obj = _strength_from_lifetime(scenario_obj)
+    problems = _physics_problems(scenario_obj)
+    if problems:
+        raise ScenarioError(problems)
     return scenario_obj
+
+
+def _physics_problems(s: Scenario) -> list[str]:
+    """Values that are each allowed but make the physics meaningless together.
+
+    A UV cutoff at or below the rest-frame emitted momentum k0 leaves no resonant mode; a sample
+    spacing longer than a golden-rule lifetime leaves the decay unresolved.
+    """
+    from .rates import packet_rate, rest_emitted_momentum
+
+    problems = []
+    k0 = rest_emitted_momentum(s)
+    if s.field.cutoff is not None and k0 is not None and s.field.cutoff <= k0:
+        problems.append(f"field.cutoff = {s.field.cutoff!r}: at or below the momentum k0 = {k0:.6g} "
+                        f"a detector at rest emits, so the bath has no resonant mode; "
+                        f"allowed: > {k0:.6g}")
+    if s.run.t_max is not None:
+        lifetimes = packet_rate(s) * s.run.t_max
+        if lifetimes > s.run.samples - 1:
+            need = math.ceil(lifetimes) + 1
+            problems.append(f"run.samples = {s.run.samples}: t_max spans {lifetimes:.3g} golden-rule "
+                            f"lifetimes, fewer than one sample each leaves the decay unresolved; "
+                            f"allowed: >= {need} (or a shorter run.t_max)")
+    return problems
 
 
 def _plain(mapping: Mapping[str, Any]) -> dict:

@@ -153,10 +153,19 @@ def test_smearing_multiplies_static_rate_by_form_factor(dims, smearing):
     assert smeared / point == pytest.approx(math.exp(-(gap * smearing) ** 2), rel=RTOL)
 
 
-def test_cutoff_below_emitted_momentum_switches_emission_off():
-    # a truncated bath with |k| <= K < k* has no resonant mode
-    s = scenario(dims=3, gap=0.5, cutoff=0.3)
-    assert rest_rate(s) == 0.0
+def test_cutoff_below_emitted_momentum_is_refused():
+    # a truncated bath with |k| <= K < k* has no resonant mode: a scenario error, not a zero rate
+    from sim import ScenarioError
+
+    with pytest.raises(ScenarioError, match=r"field.cutoff = 0.3: .* allowed: > 0.41666"):
+        scenario(dims=3, gap=0.5, cutoff=0.3)
+
+
+def test_cutoff_cuts_forward_emission_of_a_moving_detector():
+    # above k0 but below the Doppler-shifted forward momentum: only part of the emission remains
+    full = template_rate(scenario(dims=1, gap=0.5), 1.0)
+    cut = template_rate(scenario(dims=1, gap=0.5, cutoff=0.45), 1.0)
+    assert 0 < cut < full
 
 
 def test_massive_field_1d_rest_rate():

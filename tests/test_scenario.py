@@ -90,6 +90,13 @@ def test_missing_tables_and_keys():
         assert needle in text
 
 
+def test_coarse_sampling_is_refused():
+    raw = copy.deepcopy(BASE)
+    raw["run"].update(t_max=1e6, samples=5)
+    with pytest.raises(ScenarioError, match="run.samples = 5: .*lifetimes"):
+        load_scenario(raw)
+
+
 def test_with_keys_revalidates():
     s = load_scenario(BASE)
     assert with_keys(s, {"packet.width": 3.0}).packet.width == 3.0

@@ -24,6 +24,52 @@ AUTO_LIFETIMES = 5.0
 SNAPSHOTS = 5
 #: warn when the excited + ground population drifts from 1 by more than this
 NORM_TOLERANCE = 1e-6
+#: warn when the perturbation parameter Gamma / Omega exceeds this
+WEAK_COUPLING_LIMIT = 0.05
+#: refuse a run whose estimated memory exceeds this share of the available memory
+MEMORY_SHARE = 0.8
+
+
+class ResourceError(ScenarioError):
+    """A run that would not fit in memory; the message names the keys that control its size."""
+
+
+@dataclass(frozen=True)
+class Estimate:
+    """Size of a run before it starts: largest state count, memory (bytes), work (flops)."""
+
+    states: int
+    memory_bytes: float
+    work: float
+    keys: tuple[str, ...] = ()
+
+    def describe(self) -> str:
+        return (f"about {self.states:,} states, {self.memory_bytes / 2**30:.3g} GiB of memory, "
+                f"{self.work:.2g} floating-point operations")
+
+
+def available_memory() -> float:
+    """Memory available to a new allocation (bytes), from /proc/meminfo where it exists."""
+    try:
+        with open("/proc/meminfo") as handle:
+            for line in handle:
+                if line.startswith("MemAvailable:"):
+                    return float(line.split()[1]) * 1024
+    except OSError:
+        pass
+    import os
+
+    return float(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
+
+
+def check_resources(estimate: Estimate, method: str) -> None:
+    """Raise ResourceError if the estimated memory exceeds MEMORY_SHARE of what is available."""
+    limit = MEMORY_SHARE * available_memory()
+    if estimate.memory_bytes > limit:
+        keys = ", ".join(estimate.keys) or "the discretisation keys"
+        raise ResourceError(f"{(estimate.keys or ('run.method',))[0]}: method {method!r} would need "
+                            f"{estimate.describe()}, more than the {limit / 2**30:.3g} GiB "
+                            f"available; lower {keys}")
 
 
 @dataclass
@@ -97,8 +143,14 @@ class Solver:
         """A solver with every discretisation parameter refined, or None if there is none."""
         return None
 
+    def estimate(self) -> Estimate:
+        """Size of the run (overridden by solvers with large discretisations)."""
+        samples = self.scenario.run.samples
+        return Estimate(states=samples, memory_bytes=64.0 * samples, work=1e3 * samples)
+
     def run(self) -> Result:
         """Evolve the scenario and assemble the Result with its summary."""
+        check_resources(self.estimate(), self.name)
         times = sample_times(self.scenario)
         started = time.perf_counter()
         evo = self.evolve(times)
@@ -114,7 +166,7 @@ def assemble(method: str, scenario: Scenario, times: np.ndarray, evo: Evolution,
     excited_start = scenario.packet.internal == "excited"
     fitted = (fitted_rate(times, evo.excited) if excited_start
               else fitted_excitation_rate(times, evo.excited))
-    warnings = list(evo.warnings)
+    warnings = list(evo.warnings) + physics_warnings(scenario, golden)
     if evo.norm is not None:
         drift = float(np.max(np.abs(evo.norm - 1.0)))
         if drift > NORM_TOLERANCE:
@@ -148,6 +200,23 @@ def assemble(method: str, scenario: Scenario, times: np.ndarray, evo: Evolution,
                   momentum_grid=evo.momentum_grid, snapshot_times=evo.snapshot_times,
                   momentum_density=evo.momentum_density, initial_density=evo.initial_density,
                   summary=summary, tables=evo.tables, final_state=evo.final_state)
+
+
+def physics_warnings(scenario: Scenario, rate: float) -> list[str]:
+    """Warnings every method shares: a large perturbation parameter, RWA where it fails."""
+    out = []
+    gap = scenario.detector.gap
+    if rate / gap > WEAK_COUPLING_LIMIT:
+        out.append(f"perturbation parameter Gamma/Omega = {rate / gap:.3g} is large (above "
+                   f"{WEAK_COUPLING_LIMIT:g}): golden-rule and Markov predictions are unreliable here")
+    packet = packet_for(scenario)
+    fastest = (packet.mean_speed + 3 * packet.momentum_std) / scenario.detector.ground_mass
+    if (scenario.detector.model == "galilean" and scenario.coupling.rotating_wave
+            and fastest > 1):
+        out.append(f"rotating-wave approximation with a galilean detector reaching |v| = "
+                   f"{fastest:.3g} > 1: counter-rotating terms are resonant there (anomalous Doppler "
+                   "emission) and are dropped; use method = \"fock\" with rotating_wave = false")
+    return out
 
 
 def resolved_parameters(scenario: Scenario) -> dict:
