@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 from pathlib import Path
 
@@ -238,6 +239,16 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("recoilsim: interrupted; no partial output was left behind", file=sys.stderr)
         return 130
+    except MemoryError:
+        print("recoilsim: ran out of memory; `recoilsim run SCENARIO --dry-run` shows the "
+              "estimate; lower the [bath] or [grid] sizes", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except Exception as exc:  # the last line of defence: one line, no traceback
+        if os.environ.get("RECOILSIM_DEBUG"):
+            raise
+        print(f"recoilsim: internal error ({type(exc).__name__}: {exc}); rerun with "
+              "RECOILSIM_DEBUG=1 for the traceback and please report it", file=sys.stderr)
+        return 1
 
 
 if __name__ == "__main__":
