@@ -315,6 +315,12 @@ def _typed(kind: str, value: Any, dims: int) -> tuple[Any, str | None]:
     raise AssertionError(kind)
 
 
+def _name(key: str) -> str:
+    """A key as it appears in messages: bare if it is a plain TOML key, quoted otherwise."""
+    plain = key and all(c.isalnum() or c in "_-" for c in key) and key.isascii()
+    return key if plain else _describe(key)
+
+
 def _describe(value: Any) -> str:
     text = repr(value)
     return text if len(text) <= 60 else text[:57] + "..."
@@ -331,7 +337,7 @@ def _validate_tables(raw: Mapping[str, Any]) -> tuple[dict[str, dict[str, Any]],
             if not isinstance(value, str):
                 problems.append(f"title = {_describe(value)}: expected a string")
         elif name not in SCHEMA:
-            problems.append(f"[{name}]: unknown table; allowed: title, "
+            problems.append(f"[{_name(name)}]: unknown table; allowed: title, "
                             + ", ".join(f"[{t}]" for t in SCHEMA))
         elif not isinstance(value, dict):
             problems.append(f"{name} = {_describe(value)}: expected a table [{name}]")
@@ -345,7 +351,7 @@ def _validate_tables(raw: Mapping[str, Any]) -> tuple[dict[str, dict[str, Any]],
         typed: dict[str, Any] = {}
         for key, value in given.items():
             if key not in keys:
-                problems.append(f"{table}.{key}: unknown key; allowed: " + ", ".join(keys))
+                problems.append(f"{table}.{_name(key)}: unknown key; allowed: " + ", ".join(keys))
                 continue
             spec = keys[key]
             converted, reason = _typed(spec.kind, value, dims)
