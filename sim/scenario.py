@@ -317,7 +317,7 @@ def _typed(kind: str, value: Any, dims: int) -> tuple[Any, str | None]:
 
 def _name(key: str) -> str:
     """A key as it appears in messages: bare if it is a plain TOML key, quoted otherwise."""
-    plain = key and all(c.isalnum() or c in "_-" for c in key) and key.isascii()
+    plain = bool(key) and all(c.isalnum() or c in "_-" for c in key)
     return key if plain else _describe(key)
 
 
