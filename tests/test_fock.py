@@ -1,0 +1,359 @@
+"""The truncated Fock-space solver (method = "fock") against independent references.
+
+References: the exact single-excitation solver on identical modes (sim.exact, itself checked against
+closed forms), second-order time-dependent perturbation theory (textbook formula, Sakurai, Modern
+Quantum Mechanics, sec. 5.6), and an independent QuTiP build of the full Hamiltonian on a
+tensor-product space (COM momentum register x level x modes) that uses no momentum sectors.
+"""
+
+import csv
+import itertools
+import math
+import re
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+import qutip
+
+from sim.exact import level_amplitude
+from sim.output import write_result
+from sim.scenario import ScenarioError, load_scenario, with_keys
+from sim.solvers import run
+from sim.solvers.fock import (FockSolver, counter_rotating_figure, fock_basis, occupation_counts,
+                              state_count)
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def scenario(**changes):
+    """A small 1D fock scenario (invented numbers); `changes` are dotted keys (None removes one)."""
+    raw = {"title": "fock test",
+           "detector": {"model": "newton-wigner", "ground_mass": 1.0, "gap": 0.5},
+           "field": {"dimensions": 1, "mass": 0.1},
+           "coupling": {"strength": 0.1, "rotating_wave": False},
+           "packet": {"width": 20.0, "momentum": 0.3, "internal": "excited"},
+           "run": {"method": "fock", "t_max": 40.0, "samples": 81},
+           "bath": {"box_length": 60.0, "fock_modes": 10}}
+    for dotted, value in changes.items():
+        table, key = dotted.split(".")
+        if value is None:
+            raw[table].pop(key)
+        else:
+            raw.setdefault(table, {})[key] = value
+    return load_scenario(raw)
+
+
+# --- independent closed forms, written out here from physics.md sec. 1 ---------------------------
+
+def energies(model, mass_g, gap, p):
+    """E_g(p), E_e(p) - M_g of the model (physics.md sec. 1 table)."""
+    p = np.abs(np.asarray(p, dtype=float))
+    if model == "galilean":
+        return p ** 2 / (2 * mass_g), p ** 2 / (2 * mass_g) + gap
+    return np.sqrt(p ** 2 + mass_g ** 2) - mass_g, np.sqrt(p ** 2 + (mass_g + gap) ** 2) - mass_g
+
+
+def vertex(model, mass_g, gap, p_e, p_g):
+    """V(p_e, p_g): 1, or 1/sqrt(2E_e 2E_g) for one-particle (physics.md sec. 1)."""
+    if model != "one-particle":
+        return np.ones(np.broadcast(p_e, p_g).shape)
+    e_g = np.sqrt(np.square(p_g) + mass_g ** 2)
+    e_e = np.sqrt(np.square(p_e) + (mass_g + gap) ** 2)
+    return 1 / np.sqrt(4 * e_e * e_g)
+
+
+def box_couplings(s, k):
+    """c F(k) / sqrt(L 2 w_k) in the 1D box (Int dk/2pi -> (1/L) sum)."""
+    c = s.coupling.strength
+    if s.detector.model == "one-particle":  # nonrelativistic matching lambda_2^2 = 4 M_g M_e lambda^2
+        c *= math.sqrt(4 * s.detector.ground_mass * s.detector.excited_mass)
+    w = np.sqrt(k ** 2 + s.field.mass ** 2)
+    return c * np.exp(-0.5 * (k * s.field.smearing) ** 2) / np.sqrt(s.bath.box_length * 2 * w)
+
+
+# --- tests ----------------------------------------------------------------------------------------
+
+@pytest.mark.parametrize("model", ["newton-wigner", "one-particle", "galilean"])
+def test_rotating_wave_reproduces_exact_star_on_identical_modes(model):
+    """RWA: the sector sesolve equals the exact secular solution (sim.exact) to 1e-8."""
+    s = scenario(**{"coupling.rotating_wave": True, "detector.model": model, "bath.sectors": 12,
+                    "field.smearing": 0.5, "packet.width": 5.0})
+    result = run(s)
+    plan = FockSolver(s).plan
+    k = plan.modes.momenta[:, 0]
+    d = s.detector
+    expected = 0.0
+    for (P,), weight in zip(plan.sector_momenta, plan.sector_weights):
+        e_g, _ = energies(model, d.ground_mass, d.gap, P - k)
+        _, level = energies(model, d.ground_mass, d.gap, P)
+        g = box_couplings(s, k) * vertex(model, d.ground_mass, d.gap, P, P - k)
+        modes = e_g + np.sqrt(k ** 2 + s.field.mass ** 2)
+        expected = expected + weight * np.abs(level_amplitude(level, modes, g, result.times)) ** 2
+    assert len(plan.sector_weights) >= 9 and expected.min() < 0.8  # a real decay, many sectors
+    np.testing.assert_allclose(result.excited, expected, rtol=0, atol=1e-8)
+
+
+def test_rotating_wave_reproduces_method_exact_on_the_same_box():
+    """RWA with every box mode kept: method "fock" equals method "exact" (sim.bath's box) to 1e-8,
+    for the decay and for the recoil moments."""
+    s = scenario(**{"coupling.rotating_wave": True, "bath.sectors": 12, "bath.fock_modes": 1000,
+                    "packet.width": 5.0})
+    fock, exact = run(s), run(s, method="exact")
+    assert exact.excited.min() < 0.5 and exact.summary["stats"]["sectors"] >= 9
+    for name in ("excited", "p_mean", "p_var"):
+        np.testing.assert_allclose(getattr(fock, name), getattr(exact, name), rtol=0, atol=1e-8)
+
+
+def test_thermal_field_is_refused():
+    with pytest.raises(ScenarioError, match="field.temperature"):
+        run(scenario(**{"field.temperature": 0.1}))
+
+
+def test_rotating_wave_reproduces_exact_star_in_3d():
+    """3D octahedral bath, RWA: agreement with sim.exact on the plan's modes to 1e-8."""
+    s = scenario(**{"coupling.rotating_wave": True, "field.dimensions": 3, "packet.momentum": 0.2,
+                    "coupling.strength": 0.5, "bath.box_length": None, "bath.fock_modes": 18})
+    result = run(s)
+    plan = FockSolver(s).plan
+    k = plan.modes.momenta
+    d = s.detector
+    expected = 0.0
+    for P, weight in zip(plan.sector_momenta, plan.sector_weights):
+        after = np.linalg.norm(P - k, axis=1)
+        e_g, _ = energies("newton-wigner", d.ground_mass, d.gap, after)
+        _, level = energies("newton-wigner", d.ground_mass, d.gap, np.linalg.norm(P))
+        g = s.coupling.strength * np.sqrt(plan.modes.weights)
+        modes = e_g + np.sqrt((k ** 2).sum(1) + s.field.mass ** 2)
+        expected = expected + weight * np.abs(level_amplitude(level, modes, g, result.times)) ** 2
+    assert plan.modes.count == 18 and expected.min() < 0.9
+    np.testing.assert_allclose(result.excited, expected, rtol=0, atol=1e-8)
+
+
+def independent_qutip_evolution(s, plan, times):
+    """Full H on COM register (x) level (x) truncated modes, built with qutip.tensor, no sectors.
+
+    Returns P_e(t), <N>(t), <p>(t) and <P_total>(t), Var P_total(t) for the single sector of `plan`.
+    """
+    d, model = s.detector, s.detector.model
+    (P,), k = plan.sector_momenta[0], plan.modes.momenta[:, 0]
+    step = 2 * np.pi / s.bath.box_length
+    shifts = np.rint(k / step).astype(int)
+    n_max = plan.max_occupation
+    low = round(P / step) - n_max * shifts[shifts > 0].sum()
+    high = round(P / step) - n_max * shifts[shifts < 0].sum()
+    q = np.arange(low, high + 1) * step  # every reachable COM momentum
+    R, M = len(q), len(k)
+    g_levels = [qutip.basis(2, 0), qutip.basis(2, 1)]  # 0 = g, 1 = e
+    e_g, e_e = energies(model, d.ground_mass, d.gap, q)
+    h_free = (qutip.tensor(qutip.Qobj(np.diag(e_g)), g_levels[0].proj())
+              + qutip.tensor(qutip.Qobj(np.diag(e_e)), g_levels[1].proj()))
+    field_dims = [n_max + 1] * M
+    eye_field = qutip.qeye(field_dims) if M > 1 else qutip.qeye(n_max + 1)
+    H = qutip.tensor(h_free, eye_field)
+    couplings = box_couplings(s, k)
+
+    def mode_op(op, j):
+        ops = [qutip.qeye(n_max + 1)] * M
+        ops[j] = op
+        return qutip.tensor(ops)
+
+    w = np.sqrt(k ** 2 + s.field.mass ** 2)
+    number = 0
+    field_momentum = 0
+    for j in range(M):
+        n_j = mode_op(qutip.num(n_max + 1), j)
+        H += w[j] * qutip.tensor(qutip.qeye(R), qutip.qeye(2), n_j)
+        number += qutip.tensor(qutip.qeye(R), qutip.qeye(2), n_j)
+        field_momentum += k[j] * qutip.tensor(qutip.qeye(R), qutip.qeye(2), n_j)
+        emit = np.zeros((2 * R, 2 * R))  # on COM (x) level: q -> q - k_j with a level flip
+        for r in range(R):
+            t = r - shifts[j]
+            if 0 <= t < R:
+                emit[2 * t + 1, 2 * r] = vertex(model, d.ground_mass, d.gap, q[t], q[r])  # g -> e
+                emit[2 * t, 2 * r + 1] = vertex(model, d.ground_mass, d.gap, q[r], q[t])  # e -> g
+        E = qutip.Qobj(emit, dims=[[R, 2], [R, 2]])
+        H += couplings[j] * (qutip.tensor(E, mode_op(qutip.create(n_max + 1), j))
+                             + qutip.tensor(E.dag(), mode_op(qutip.destroy(n_max + 1), j)))
+    com = qutip.tensor(qutip.Qobj(np.diag(q)), qutip.qeye(2), eye_field)
+    excited = qutip.tensor(qutip.qeye(R), g_levels[1].proj(), eye_field)
+    total = com + field_momentum
+    start = qutip.tensor(qutip.basis(R, round(P / step) - low), g_levels[plan.start_level],
+                         qutip.basis(field_dims, [0] * M))
+    out = qutip.sesolve(H, start, times, e_ops=[excited, number, com, total, total * total],
+                        options={"atol": 1e-12, "rtol": 1e-10, "nsteps": 10 ** 6})
+    pe, n, p, pt, pt2 = (np.real(np.asarray(x)) for x in out.expect)
+    return pe, n, p, pt, pt2 - pt ** 2
+
+
+@pytest.mark.parametrize("model, internal", [("one-particle", "excited"), ("galilean", "ground")])
+def test_counter_rotating_dynamics_match_independent_qutip_build(model, internal):
+    """All terms, three asymmetric modes: sectors vs a tensor-product QuTiP build (QuTiP reference).
+
+    The reference also checks total-momentum conservation, since its H is not built sector-wise.
+    """
+    s = scenario(**{"detector.model": model, "packet.internal": internal, "bath.fock_modes": 4,
+                    "bath.max_occupation": 2, "bath.max_quanta": 8, "coupling.strength": 0.4,
+                    "field.smearing": 0.8, "bath.box_length": 25.0, "run.t_max": 30.0})
+    result = run(s)
+    plan = FockSolver(s).plan
+    k = plan.modes.momenta[:, 0]
+    assert len(plan.sector_weights) == 1 and not np.isclose(k.sum(), 0.0)  # asymmetric bath
+    pe, n, p, pt, pt_var = independent_qutip_evolution(s, plan, result.times)
+    P = plan.sector_momenta[0, 0]
+    np.testing.assert_allclose(pt, P, atol=1e-9)  # conservation of total momentum
+    np.testing.assert_allclose(pt_var, 0.0, atol=1e-9)
+    assert np.ptp(pe) > 0.05 and np.ptp(p) > 1e-3  # the dynamics and the recoil are not trivial
+    np.testing.assert_allclose(result.excited, pe, atol=1e-7)
+    np.testing.assert_allclose(result.tables["field"]["quanta"], n, atol=1e-7)
+    np.testing.assert_allclose(result.p_mean, p, atol=1e-7)
+
+
+def second_order_excitation(s, plan, times):
+    """P_e(t) = sum_k |g_k|^2 4 sin^2(D_k t/2) / D_k^2, D_k = E_e(p-k) + w_k - E_g(p), sector sum.
+
+    Standard second-order time-dependent perturbation theory (Sakurai, Modern Quantum Mechanics,
+    sec. 5.6) for |g, p; vac> -> |e, p - k; 1_k> through the counter-rotating term sigma+ a_k^dag.
+    """
+    d, model = s.detector, s.detector.model
+    k = plan.modes.momenta[:, 0]
+    w = np.sqrt(k ** 2 + s.field.mass ** 2)
+    total = np.zeros_like(times)
+    for (P,), weight in zip(plan.sector_momenta, plan.sector_weights):
+        e_g, _ = energies(model, d.ground_mass, d.gap, P)
+        _, e_e = energies(model, d.ground_mass, d.gap, P - k)
+        g2 = (box_couplings(s, k) * vertex(model, d.ground_mass, d.gap, P - k, P)) ** 2
+        D = e_e + w - e_g
+        total += weight * (4 * np.sin(np.outer(times, D) / 2) ** 2 / D ** 2) @ g2
+    return total
+
+
+def test_vacuum_excitation_matches_second_order_and_scales_as_lambda_squared():
+    """Ground start, weak coupling: P_e(t) from the counter-rotating terms (Sakurai sec. 5.6).
+
+    The residual is the fourth-order term: it must shrink as lambda^2 relative to P_e.
+    """
+    weak = scenario(**{"packet.internal": "ground", "coupling.strength": 0.0025,
+                       "detector.model": "one-particle", "bath.sectors": 3})
+    doubled = with_keys(weak, {"coupling.strength": 0.005})
+    r1, r2 = run(weak), run(doubled)
+    plan = FockSolver(weak).plan
+    expected = second_order_excitation(weak, plan, r1.times)
+    late = r1.times > 5
+    assert r1.excited[0] == 0 and expected[late].min() > 1e-6  # excitation from the vacuum
+    residual_1 = np.max(np.abs(r1.excited[late] / expected[late] - 1))
+    residual_2 = np.max(np.abs(r2.excited[late] / (4 * expected[late]) - 1))
+    assert residual_1 < 1e-3
+    assert 3.6 < residual_2 / residual_1 < 4.4  # fourth order: relative residual ~ lambda^2
+    np.testing.assert_allclose(r2.excited[late] / r1.excited[late], 4.0, rtol=3e-3)
+    # the reference table written with the run is the same formula
+    np.testing.assert_allclose(r1.tables["counter_rotating"]["excited_second_order"], expected,
+                               rtol=1e-10, atol=1e-16)
+
+
+def test_vacuum_excitation_in_3d_matches_second_order():
+    """3D octahedral bath, ground start, weak coupling: second order (Sakurai sec. 5.6) on the
+    plan's modes (measures mu_j), with the vector recoil |P - k| written out here."""
+    s = scenario(**{"packet.internal": "ground", "field.dimensions": 3, "packet.momentum": 0.2,
+                    "coupling.strength": 0.01, "bath.box_length": None, "bath.fock_modes": 12,
+                    "bath.max_quanta": 3})
+    result = run(s)
+    plan = FockSolver(s).plan
+    d = s.detector
+    k = plan.modes.momenta
+    w = np.sqrt((k ** 2).sum(1) + s.field.mass ** 2)
+    expected = np.zeros_like(result.times)
+    for P, weight in zip(plan.sector_momenta, plan.sector_weights):
+        e_g, _ = energies("newton-wigner", d.ground_mass, d.gap, np.linalg.norm(P))
+        _, e_e = energies("newton-wigner", d.ground_mass, d.gap, np.linalg.norm(P - k, axis=1))
+        D = e_e + w - e_g
+        g2 = s.coupling.strength ** 2 * plan.modes.weights
+        expected += weight * (4 * np.sin(np.outer(result.times, D) / 2) ** 2 / D ** 2) @ g2
+    late = result.times > 5
+    assert expected[late].min() > 1e-7
+    np.testing.assert_allclose(result.excited[late], expected[late], rtol=1e-3)
+
+
+def test_rotating_wave_keeps_a_ground_detector_in_the_vacuum():
+    """Under the RWA, |g, vac> is an eigenstate: no excitation (excitation number conserved)."""
+    r = run(scenario(**{"packet.internal": "ground", "coupling.rotating_wave": True}))
+    assert np.all(r.excited == 0) and np.all(r.tables["field"]["quanta"] == 0)
+
+
+def test_norm_is_conserved():
+    """Strong coupling, all terms: the total probability stays 1 (sesolve does not renormalise)."""
+    result = run(scenario(**{"coupling.strength": 0.3, "bath.sectors": 3}))
+    assert result.summary["stats"]["norm_drift"] < 1e-8
+    assert not any("norm drift" in w for w in result.warnings)
+    assert result.excited.min() < 0.9  # the run did evolve
+
+
+def test_fock_cutoff_convergence_and_refined():
+    """Raising max_quanta converges: each step changes P_e less than the one before."""
+    base = scenario(**{"coupling.strength": 0.2, "bath.fock_modes": 6})
+    curves = [run(with_keys(base, {"bath.max_quanta": q})).excited for q in (1, 2, 3, 4)]
+    changes = [np.max(np.abs(b - a)) for a, b in zip(curves, curves[1:])]
+    assert changes[0] > 1e-4  # the counter-rotating terms matter at this coupling
+    assert changes[0] > 3 * changes[1] > 9 * changes[2]
+    solver = FockSolver(with_keys(base, {"bath.max_quanta": 3}))
+    finer = solver.refined()
+    assert (finer.plan.max_quanta, finer.plan.max_occupation) == (4, 4)
+    assert FockSolver(scenario(**{"coupling.rotating_wave": True})).refined() is None
+
+
+def test_state_count_matches_enumeration():
+    """The closed count (generating polynomial) equals brute-force enumeration with itertools."""
+    for modes, occupation, quanta in [(4, 2, 3), (5, 1, 4), (3, 3, 3), (6, 4, 2)]:
+        brute = [0] * (quanta + 1)
+        for n in itertools.product(range(occupation + 1), repeat=modes):
+            if sum(n) <= quanta:
+                brute[sum(n)] += 1
+        assert list(occupation_counts(modes, occupation, quanta)) == brute
+        s = scenario(**{"bath.fock_modes": modes, "bath.max_occupation": occupation,
+                        "bath.max_quanta": quanta})
+        plan = FockSolver(s).plan
+        assert state_count(plan) == len(fock_basis(plan).levels) == sum(brute)
+
+
+def test_oversized_truncation_is_refused_before_allocating(capsys, tmp_path):
+    """A clear refusal naming the keys, the state count and the memory; no traceback in the CLI."""
+    s = scenario(**{"bath.fock_modes": 60, "bath.max_quanta": 12, "bath.box_length": 400.0})
+    started = time.perf_counter()
+    with pytest.raises(ScenarioError) as info:
+        run(s)
+    assert time.perf_counter() - started < 5
+    message = str(info.value)
+    assert "bath.max_quanta" in message and "states" in message and "GiB" in message
+    from sim.cli import main
+
+    path = tmp_path / "big.toml"
+    text = (ROOT / "scenarios" / "vacuum_excitation.toml").read_text()
+    text = re.sub(r"(?m)^fock_modes = .*$", "fock_modes = 60", text)
+    text = re.sub(r"(?m)^max_quanta = .*$", "max_quanta = 12", text)
+    path.write_text(re.sub(r"(?m)^box_length = .*$", "box_length = 400.0", text))
+    assert main(["run", str(path), "--out", str(tmp_path / "out")]) == 2
+    err = capsys.readouterr().err
+    assert "bath.max_quanta" in err and "Traceback" not in err
+
+
+def test_files_and_figure(tmp_path):
+    """field.csv (t, quanta) is written; the counter-rotating figure is stamped as simulated."""
+    result = run(scenario(**{"coupling.strength": 0.2}))
+    write_result(result, tmp_path / "out")
+    with open(tmp_path / "out" / "field.csv") as f:
+        rows = list(csv.reader(f))
+    assert rows[0][:2] == ["t", "quanta"] and len(rows) == len(result.times) + 1
+    fig = counter_rotating_figure(result)
+    assert any("simulated" in t.get_text() for t in fig.texts)
+    correction = result.excited - result.tables["counter_rotating"]["excited_rotating_wave"]
+    assert np.max(np.abs(correction)) > 1e-3  # visible at this coupling
+
+
+def test_bundled_vacuum_excitation_scenario():
+    """The bundled scenario: a ground-state detector gets excited from the vacuum, converged."""
+    s = load_scenario(ROOT / "scenarios" / "vacuum_excitation.toml")
+    assert s.packet.internal == "ground" and not s.coupling.rotating_wave
+    result = run(s)
+    assert result.excited[0] == 0 and result.excited.max() > 1e-3
+    assert not any("Fock cutoff" in w for w in result.warnings)
