@@ -46,13 +46,28 @@ def _momenta_option(text: str) -> np.ndarray:
 
 
 def rates_report(scenario, at: np.ndarray | None) -> dict:
-    """The rates contract: packet-averaged rate, rest rate, template function."""
+    """The rates contract: packet-averaged rate, rest rate, template function.
+
+    With a scenario in physical units, `at` momenta are read in, and every number is reported in,
+    the run's output units (listed under "units"); otherwise natural units throughout.
+    """
     from .rates import packet_rate, rest_rate, template_grid, template_rate
 
+    units = scenario.units
+    rate_out = (lambda r: float(units.to_output("rate_golden_rule", r))) if units else float
+    p_out = (lambda p: units.to_output("p", p)) if units else np.asarray
+    if at is not None and units:
+        at = at / float(units.to_output("p", 1.0))
     p = at if at is not None else template_grid(scenario)
-    return {"rate": packet_rate(scenario), "rest_rate": rest_rate(scenario),
-            "template": {"p": [float(x) for x in p],
-                         "rate": [float(x) for x in np.atleast_1d(template_rate(scenario, np.abs(p)))]}}
+    rates = np.atleast_1d(template_rate(scenario, np.abs(p)))
+    report = {"rate": rate_out(packet_rate(scenario)), "rest_rate": rate_out(rest_rate(scenario)),
+              "template": {"p": [float(x) for x in np.atleast_1d(p_out(p))],
+                           "rate": [rate_out(x) for x in rates]}}
+    if units:
+        report["units"] = {"rate": units.column_unit("rate_golden_rule"),
+                           "rest_rate": units.column_unit("rate_golden_rule"),
+                           "p": units.column_unit("p")}
+    return report
 
 
 def cmd_rates(args) -> int:
@@ -67,9 +82,10 @@ def cmd_rates(args) -> int:
         return 0
     kind = "excitation" if scenario.packet.internal == "ground" else "decay"
     print(f"{scenario.title}  [{scenario.detector.model}, {scenario.dimensions}D, {kind}]")
-    print(f"packet-averaged golden-rule rate  {report['rate']:.10g}")
-    print(f"rest-frame rate Gamma(0)          {report['rest_rate']:.10g}")
-    print(f"{'p':>16}  {'Gamma(p)':>16}")
+    units = report.get("units", {"rate": "", "p": ""})
+    print(f"packet-averaged golden-rule rate  {report['rate']:.10g} {units['rate']}")
+    print(f"rest-frame rate Gamma(0)          {report['rest_rate']:.10g} {units['rate']}")
+    print(f"{'p ' + units['p']:>16}  {'Gamma(p) ' + units['rate']:>16}")
     for p, r in zip(report["template"]["p"], report["template"]["rate"]):
         print(f"{p:16.8g}  {r:16.10g}")
     if args.plot:
@@ -99,15 +115,15 @@ def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bo
                                     "note": f"method {solver.name!r} has no discretisation to refine"}
         else:
             extra["convergence"] = convergence_report(result, refined.run())
-    write_result(result, out, force=force, extra_summary=extra)
-    summary = {**result.summary, **extra}
-    return summary
+    return write_result(result, out, force=force, extra_summary=extra)
 
 
 def print_run_summary(summary: dict, out: Path) -> None:
+    rate_unit = summary.get("units", {}).get("rate_golden_rule", "")
     print(f"{summary['title']}: method {summary['method']}, simulated")
-    print(f"  golden-rule rate {summary['rate_golden_rule']:.6g}, fitted rate "
-          f"{summary['rate_fitted']:.6g}, final excited population {summary['final_excited']:.6g}")
+    print(f"  golden-rule rate {summary['rate_golden_rule']:.6g} {rate_unit}, fitted rate "
+          f"{summary['rate_fitted']:.6g} {rate_unit}, final excited population "
+          f"{summary['final_excited']:.6g}")
     if "convergence" in summary:
         print(f"  convergence: largest change of P_e on refinement "
               f"{summary['convergence']['max_change_excited']:.3g}")
@@ -236,6 +252,9 @@ def main(argv: list[str] | None = None) -> int:
     except (UsageError, OutputExists) as exc:
         print(f"recoilsim: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
+    except BrokenPipeError:  # output piped into a program that stopped reading (e.g. head)
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
     except KeyboardInterrupt:
         print("recoilsim: interrupted; no partial output was left behind", file=sys.stderr)
         return 130

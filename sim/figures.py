@@ -32,7 +32,7 @@ def time_label(result) -> str:
     return f"t [{units.column_unit('t')}]" if units else "t [1/energy unit]"
 
 
-def _times(result):
+def output_times(result):
     units = result.scenario.units
     return units.to_output("t", result.times) if units else result.times
 
@@ -42,13 +42,17 @@ def draw_decay(result, ax=None):
     if ax is None:
         fig, ax = plt.subplots(figsize=(6, 4), constrained_layout=True)
         stamp(fig)
-    t = _times(result)
+    t = output_times(result)
     ax.semilogy(t, np.clip(result.excited, 1e-300, None), color=METHOD_COLOURS.get(result.method),
                 label=f"{result.method} (simulated)")
-    rate = result.summary.get("rate_golden_rule")
+    rate = result.summary.get("rate_golden_rule")  # natural units in memory
     if rate and result.scenario.packet.internal == "excited":
+        units = result.scenario.units
+        shown = f"{rate:.4g}" if units is None else (
+            f"{float(units.to_output('rate_golden_rule', rate)):.4g} "
+            f"{units.column_unit('rate_golden_rule')}")
         ax.semilogy(t, np.exp(-rate * result.times), "k--", lw=1,
-                    label=fr"golden rule $e^{{-\Gamma t}}$, $\Gamma$={rate:.4g}")
+                    label=fr"golden rule $e^{{-\Gamma t}}$, $\Gamma$ = {shown}")
     floor = max(1e-6, float(np.nanmin(result.excited[result.excited > 0])) / 2) if np.any(
         result.excited > 0) else 1e-6
     ax.set_ylim(floor, 1.2)
@@ -91,7 +95,7 @@ def _times_value(result, t):
 
 def draw_variance(result, ax):
     """Momentum variance (and position variance where computed) against time."""
-    t = _times(result)
+    t = output_times(result)
     units = result.scenario.units
     p_var = units.to_output("p_var", result.p_var) if units else result.p_var
     ax.plot(t, p_var, color="tab:blue", label="momentum variance")
@@ -120,6 +124,18 @@ def result_figures(result, folder: str | Path) -> list[str]:
         atomic_save_figure(fig, folder / name, dpi=130)
         plt.close(fig)
         names.append(name)
+    if "counter_rotating" in result.tables:
+        from .solvers.fock import counter_rotating_figure
+
+        fig = counter_rotating_figure(result)
+        atomic_save_figure(fig, folder / "counter_rotating.png", dpi=130)
+        plt.close(fig)
+        names.append("counter_rotating.png")
+    if "emissions" in result.tables:
+        from .trajectories import trajectories_figure
+
+        trajectories_figure(result, folder / "trajectories.png")
+        names.append("trajectories.png")
     return names
 
 

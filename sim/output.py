@@ -146,22 +146,28 @@ def result_tables(result: Result) -> dict[str, dict[str, np.ndarray]]:
     return tables
 
 
+def file_summary(result: Result, extra_summary: dict | None = None) -> dict:
+    """The summary as written to summary.json: in output units when the scenario has units."""
+    summary = dict(result.summary)
+    if extra_summary:
+        summary.update(extra_summary)
+    units = result.scenario.units
+    if units is not None:
+        summary.update(units.summary_entries(result))
+    return summary
+
+
 def write_result(result: Result, out: str | Path, *, force: bool = False, figures: bool = True,
-                 extra_summary: dict | None = None) -> Path:
-    """Write every file of a run into `out` (atomically as a whole); returns the folder."""
+                 extra_summary: dict | None = None) -> dict:
+    """Write every file of a run into `out` (atomically as a whole); returns the summary written."""
     out = Path(out)
     with staged_folder(out, force) as stage:
         for name, columns in result_tables(result).items():
             atomic_write_text(stage / f"{name}.csv", csv_text(columns))
-        summary = dict(result.summary)
-        if extra_summary:
-            summary.update(extra_summary)
-        units = result.scenario.units
-        if units is not None:
-            summary.update(units.summary_entries(result))
+        summary = file_summary(result, extra_summary)
         if figures:
             from .figures import result_figures
 
             summary["figures"] = result_figures(result, stage)
         atomic_write_text(stage / "summary.json", json.dumps(json_safe(summary), indent=2) + "\n")
-    return out
+    return summary

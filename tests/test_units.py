@@ -124,7 +124,8 @@ def test_lifetime_string_sets_the_rest_frame_rate():
 
 def test_written_run_is_in_output_units(tmp_path):
     result = run(rubidium(1, t_max="80 ns", samples=41))
-    out = write_result(result, tmp_path / "run", figures=False)
+    out = tmp_path / "run"
+    write_result(result, out, figures=False)
     summary = json.loads((out / "summary.json").read_text())
     written = {}
     for name in ("population", "recoil", "momentum"):

@@ -578,10 +578,10 @@ def counter_rotating_figure(result):
     """
     import matplotlib.pyplot as plt
 
-    from ..figures import METHOD_COLOURS, _times, stamp, time_label
+    from ..figures import METHOD_COLOURS, output_times, stamp, time_label
 
     table = result.tables["counter_rotating"]
-    t = _times(result)
+    t = output_times(result)
     fig, (top, bottom) = plt.subplots(2, 1, figsize=(6, 5.5), sharex=True,
                                       constrained_layout=True, height_ratios=(2, 1))
     top.plot(t, table["excited"], color=METHOD_COLOURS["fock"], label="all terms (simulated)")
