@@ -87,6 +87,8 @@ def staged_folder(out: str | Path, force: bool = False):
 def _cell(value) -> str:
     if isinstance(value, str):
         return value
+    if isinstance(value, (int, np.integer)) and not isinstance(value, bool):
+        return str(int(value))
     value = float(value)
     return "nan" if math.isnan(value) else repr(value) if value.is_integer() else f"{value:.12g}"
 
