@@ -1,0 +1,240 @@
+"""Tests of the exact solver (`method = "exact"`, sim/solvers/exact.py) and its baths (sim/bath.py).
+
+Sources are named beside each test.  Every scenario here is invented for the test.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import qutip
+import scipy.linalg
+
+import sim
+from sim.bath import bath_for
+from sim.exact import star_spectrum
+from sim.models import EXCITED, GROUND, model_for
+from sim.rates import packet_rate
+from sim.scenario import ScenarioError, load_scenario
+from sim.solvers.exact import ExactSolver
+
+
+def scenario(model="newton-wigner", dims=1, strength=0.03, *, mass=0.0, gap=0.5, ground_mass=1.0,
+             width=50.0, momentum=0.0, lifetimes=5.0, samples=121, **keys):
+    """A scenario dict; t_max = `lifetimes` golden-rule lifetimes; keys "table.key" = value."""
+    raw = {"title": "test", "detector": {"model": model, "ground_mass": ground_mass, "gap": gap},
+           "field": {"dimensions": dims, "mass": mass},
+           "coupling": {"strength": strength},
+           "packet": {"width": width, "momentum": momentum},
+           "run": {"method": "exact", "samples": samples}}
+    for dotted, value in keys.items():
+        table, key = dotted.split("__")
+        raw.setdefault(table, {})[key] = value
+    raw["run"]["t_max"] = lifetimes / packet_rate(load_scenario(raw))
+    return raw
+
+
+def excited_at(raw, times):
+    """P_e at arbitrary times with the bath of the scenario's own run."""
+    return ExactSolver(load_scenario(raw)).evolve(np.asarray(times, dtype=float)).excited
+
+
+# --- exact identities ---------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("dims", [1, 3])
+def test_short_time_expansion(dims):
+    # physics.md sec. 2 (exact Zeno-region law): P_e = 1 - t^2 sum_P w_P Int J_P + O(t^4)
+    raw = scenario(dims=dims, strength=0.05 if dims == 1 else 0.3, mass=0.02 if dims == 1 else 0.0,
+                   field__cutoff=1.2, bath__sectors=5, bath__angular_nodes=6)
+    s = load_scenario(raw)
+    bath = bath_for(s, raw["run"]["t_max"])
+    quadratic = sum(sec.weight * sec.coupling_sum for sec in bath.sectors)
+    t = np.array([1e-3, 2e-3, 4e-3])
+    loss = 1 - excited_at(raw, t)
+    # the t^4 correction is below (t * bandwidth)^2 ~ 1e-5 of the t^2 term here
+    np.testing.assert_allclose(loss, quadratic * t ** 2, rtol=1e-4)
+
+
+def test_norm_and_total_momentum_conservation():
+    # unitarity: |c|^2 + sum |c_k|^2 = 1 in every sector; total momentum P + sum k a^dag a is
+    # conserved (physics.md sec. 1): the reduced COM state's <p> plus the field's <k> equals the
+    # packet's initial <P>, with the COM state's lattice built independently of p_mean
+    raw = scenario(strength=0.05, mass=0.02, width=20.0, momentum=0.3, lifetimes=3.0,
+                   field__cutoff=1.0, samples=61)
+    s = load_scenario(raw)
+    solver = ExactSolver(s)
+    result = solver.run()
+    assert not any("norm drift" in w for w in result.warnings)
+    assert result.final_state.tr() == pytest.approx(1.0, abs=1e-10)
+    rho = result.final_state.full()
+    lowest, spacing = result.summary["stats"]["final_state_lattice"]
+    p = lowest + spacing * np.arange(rho.shape[0])
+    com = float(np.real(np.trace(rho * p[None, :])))
+    bath = solver.bath()
+    field_momentum, initial = 0.0, 0.0
+    for sec in bath.sectors:
+        spectrum = star_spectrum(sec.level_energy, sec.mode_energies, sec.couplings)
+        modes = spectrum.mode_amplitudes(result.times[-1:])[0]
+        field_momentum += sec.weight * np.sum(np.abs(modes) ** 2 * sec.quanta)
+        initial += sec.weight * sec.momentum
+    assert com + field_momentum == pytest.approx(initial, abs=1e-10)
+    assert com == pytest.approx(result.p_mean[-1], abs=1e-10)
+    assert com < initial - 0.01  # something was emitted forward-backward asymmetrically
+
+
+# --- weak coupling: golden rule -----------------------------------------------------------------
+
+
+@pytest.mark.parametrize("model", ["galilean", "newton-wigner", "one-particle"])
+def test_weak_coupling_rate_3d(model):
+    # golden rule of the foundation issue (sim.rates.packet_rate; physics.md sec. 3 closed forms)
+    raw = scenario(model, dims=3, strength=0.3, field__cutoff=1.0, bath__sectors=4,
+                   bath__angular_nodes=8)
+    summary = sim.run(raw).summary
+    assert summary["rate_fitted"] == pytest.approx(summary["rate_golden_rule"], rel=0.01)
+
+
+@pytest.mark.parametrize("model", ["galilean", "newton-wigner", "one-particle"])
+def test_weak_coupling_rate_1d_massive_field(model):
+    # golden rule (sim.rates.packet_rate); a small field mass removes the infrared dressing
+    raw = scenario(model, strength=0.03, mass=0.02, field__cutoff=1.0, bath__sectors=3)
+    summary = sim.run(raw).summary
+    assert summary["rate_fitted"] == pytest.approx(summary["rate_golden_rule"], rel=0.01)
+    assert not any("massless 1D" in w for w in summary["warnings"])
+
+
+def test_massless_1d_infrared_departure():
+    # The massless 1D monopole coupling is infrared-sensitive (physics.md sec. 2): the soft modes
+    # dress the level (g^2 ~ 1/k), so the fitted rate falls below the golden rule by about a
+    # percent or more at lambda = 0.035, Omega = 0.5, M = 1, and the more the longer the box
+    # (the lowest mode 2 pi / L moves towards k = 0).  The issue quotes -2.5% from a reference
+    # solver with its own box and cutoff; here the departure is measured, not tuned.
+    raw = scenario("newton-wigner", strength=0.035, bath__sectors=3)
+    first = sim.run(raw).summary
+    departure = first["rate_fitted"] / first["rate_golden_rule"] - 1
+    assert -0.05 < departure < -0.005
+    assert any("massless 1D field" in w for w in first["warnings"])
+    longer = dict(raw, bath={**raw["bath"], "box_length": 3 * first["stats"]["box_length"]})
+    second = sim.run(longer).summary
+    assert second["rate_fitted"] / second["rate_golden_rule"] - 1 < departure - 0.001
+    massive = sim.run(scenario("newton-wigner", strength=0.035, mass=0.02, bath__sectors=3)).summary
+    # a field mass cuts the soft end off (at k ~ m instead of 2 pi / L): less dressing
+    assert abs(massive["rate_fitted"] / massive["rate_golden_rule"] - 1) < abs(departure) - 0.002
+
+
+# --- recoil -------------------------------------------------------------------------------------
+
+
+def test_recoil_variance_1d_heavy_detector():
+    # physics.md sec. 3: a heavy detector emits k* forward or backward; after full decay the
+    # momentum variance has grown by k*^2 (common practice: the recoil of an emitted quantum)
+    raw = scenario("newton-wigner", strength=0.05, mass=0.01, ground_mass=200.0, width=50.0,
+                   lifetimes=7.0, field__cutoff=0.7, samples=61)
+    result = sim.run(raw)
+    k_star = model_for(load_scenario(raw)).rest_emission_momentum()
+    decayed = 1 - result.excited[-1]
+    growth = result.p_var[-1] - result.p_var[0]
+    assert growth == pytest.approx(k_star ** 2 * decayed, rel=0.02)
+    assert result.purity[-1] < 0.6  # which-way information carried off by the quantum
+
+
+def test_recoil_variance_3d_heavy_detector():
+    # physics.md sec. 3: isotropic emission of k*: each axis' variance grows by k*^2 / 3
+    raw = scenario("newton-wigner", dims=3, strength=0.5, ground_mass=200.0, width=50.0,
+                   lifetimes=7.0, field__cutoff=0.8, bath__sectors=4, bath__angular_nodes=8,
+                   samples=61)
+    result = sim.run(raw)
+    k_star = model_for(load_scenario(raw)).rest_emission_momentum()
+    growth = result.p_var[-1] - result.p_var[0]
+    assert growth == pytest.approx(k_star ** 2 / 3 * (1 - result.excited[-1]), rel=0.02)
+
+
+# --- independent QuTiP build --------------------------------------------------------------------
+
+
+def test_against_qutip_sesolve():
+    # QuTiP (reference library): the whole single-excitation space of a small box built by hand
+    # from the models and the field (|e, P> and |g, P - k; 1_k> for every lattice P and k), one
+    # Hamiltonian, qutip.sesolve at tight tolerances; the excited population agrees to 1e-8
+    raw = scenario("one-particle", strength=0.3, mass=0.05, width=3.0, momentum=0.2,
+                   lifetimes=2.0, bath__box_length=40.0, field__cutoff=0.9, bath__sectors=400,
+                   samples=41)
+    s = load_scenario(raw)
+    result = sim.run(raw)
+    model = model_for(s)
+    dk = 2 * np.pi / raw["bath"]["box_length"]
+    sigma = 0.5 / raw["packet"]["width"]
+    P = dk * np.arange(np.ceil((0.2 - 6 * sigma) / dk), np.floor((0.2 + 6 * sigma) / dk) + 1)
+    k = dk * np.concatenate([-np.arange(1, 0.9 // dk + 1)[::-1], np.arange(0, 0.9 // dk + 1)])
+    amplitude = np.exp(-((P - 0.2) ** 2) / (4 * sigma ** 2))
+    lam2 = model.coupling_factor()
+    diagonal, rows, cols, values = [], [], [], []
+    for p in P:
+        e_index = len(diagonal)
+        diagonal.append(float(model.energy(EXCITED, abs(p))))
+        for q in k:
+            w = np.sqrt(q * q + 0.05 ** 2)
+            vertex = model.vertex(abs(p), abs(p - q))
+            g = lam2 * vertex / np.sqrt(2 * np.pi * 2 * w) * np.sqrt(dk)  # Int dk/(2 pi) -> sum/L
+            rows.append(e_index)
+            cols.append(len(diagonal))
+            values.append(g)
+            diagonal.append(float(model.energy(GROUND, abs(p - q))) + w)
+    size = len(diagonal)
+    H = np.diag(diagonal)
+    H[rows, cols] = values
+    H[cols, rows] = values
+    excited_rows = [i for i in range(size) if i not in set(cols)]
+    psi0 = np.zeros(size, dtype=complex)
+    psi0[excited_rows] = amplitude / np.linalg.norm(amplitude)
+    projector = np.zeros(size)
+    projector[excited_rows] = 1.0
+    out = qutip.sesolve(qutip.Qobj(H), qutip.Qobj(psi0), result.times, e_ops=[qutip.qdiags(projector, 0)],
+                        options={"atol": 1e-13, "rtol": 1e-12, "nsteps": 10 ** 6})
+    np.testing.assert_allclose(result.excited, out.expect[0], atol=1e-8)
+
+
+# --- strong coupling ----------------------------------------------------------------------------
+
+
+def test_strong_coupling_departs_from_exponential():
+    # physics.md sec. 2: short times are quadratic (Zeno), not linear; a massive 1D field has a
+    # threshold below which a bound state traps population at long times.  The bound state's
+    # level weight comes from a dense scipy.linalg.eigh of the sector (independent of sim.exact).
+    raw = scenario("newton-wigner", strength=0.35, mass=0.1, width=20.0, lifetimes=12.0,
+                   field__cutoff=1.0, bath__sectors=1, samples=401)
+    s = load_scenario(raw)
+    assert packet_rate(s) / s.detector.gap > 0.1
+    result = sim.run(raw)
+    gamma = result.summary["rate_golden_rule"]
+    t1 = 0.05 / np.sqrt(gamma * s.detector.gap)
+    loss = 1 - excited_at(raw, [t1])[0]
+    assert loss < 0.2 * gamma * t1  # far below the exponential's 1 - exp(-Gamma t)
+    sector = bath_for(s, result.times[-1]).sectors[0]
+    H = np.diag(np.concatenate(([sector.level_energy], sector.mode_energies)))
+    H[0, 1:] = H[1:, 0] = sector.couplings.real
+    energies, vectors = scipy.linalg.eigh(H)
+    assert energies[0] < sector.mode_energies.min()  # a bound state below the threshold
+    trapped = abs(vectors[0, 0]) ** 4  # its long-time contribution to P_e
+    late = result.excited[-100:]
+    assert trapped > 1e-3
+    assert late.mean() > 0.5 * trapped
+    assert late[-1] > 1e3 * np.exp(-gamma * result.times[-1])
+
+
+# --- warnings and refusals ----------------------------------------------------------------------
+
+
+def test_short_box_warns_of_recurrence():
+    raw = scenario(strength=0.05, mass=0.02, bath__box_length=100.0, field__cutoff=1.0,
+                   bath__sectors=3, samples=41)
+    warnings = sim.run(raw).summary["warnings"]
+    assert any("bath recurrence before t_max" in w for w in warnings)
+
+
+def test_thermal_field_is_refused():
+    raw = scenario(strength=0.05, mass=0.02)
+    raw["field"]["temperature"] = 0.1
+    with pytest.raises(ScenarioError, match="field.temperature = 0.1"):
+        ExactSolver(load_scenario(raw))
