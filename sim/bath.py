@@ -50,7 +50,7 @@ SECTOR_REACH = 6.0
 #: 1D: most sectors before they are thinned to every m-th lattice point
 MAX_SECTORS_1D = 161
 #: 3D: default packet |P| quadrature nodes and Gauss-Legendre nodes in cos theta
-SECTORS_3D = 12
+SECTORS_3D = 24
 ANGULAR_NODES = 16
 #: modes (1D) / energy shells (3D) per sector before a resonance window is chosen automatically
 MODE_BUDGET = 6000

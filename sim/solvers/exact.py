@@ -28,6 +28,7 @@ import math
 
 import numpy as np
 from scipy import sparse
+from scipy.ndimage import gaussian_filter1d
 
 from ..bath import Bath, bath_for, discreteness_correction, lamb_sector, refined_keys
 from ..exact import sector_lamb_shift, star_spectrum
@@ -46,7 +47,9 @@ POSITION_OVERSAMPLING = 8
 #: largest momentum lattice for the final reduced state as a qutip.Qobj
 FINAL_STATE_LIMIT = 4000
 #: 3D axis density: quantile nodes in cos(angle of P to the axis), azimuth nodes
-AXIS_NODES, AZIMUTH_NODES = 8, 6
+AXIS_NODES, AZIMUTH_NODES = 16, 12
+#: 3D axis density: Gaussian smoothing of the sampled histogram, in grid cells
+DENSITY_SMOOTHING = 1.5
 #: 1D density on the lattice up to this many points, else on the perturbative grid
 LATTICE_DENSITY_LIMIT = 6001
 
@@ -400,6 +403,8 @@ def _evolve_3d(scenario, bath: Bath, spectra, times, recoil, snaps) -> Evolution
     variance = moments[2] / moments[0] - mean ** 2
     sigma = packet.momentum_std
     initial = np.exp(-0.5 * ((grid - packet.mean_speed) / sigma) ** 2) / (np.sqrt(2 * np.pi) * sigma)
+    # the sampled angles leave a histogram: smooth it over DENSITY_SMOOTHING grid cells
+    density = gaussian_filter1d(density, DENSITY_SMOOTHING, axis=0, mode="constant")
     return Evolution(excited=excited, p_mean=_masked(recoil, times.size, mean),
                      p_var=_masked(recoil, times.size, variance), momentum_grid=grid,
                      snapshot_times=times[snaps], momentum_density=density,
