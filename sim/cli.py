@@ -120,9 +120,10 @@ def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bo
 
 def print_run_summary(summary: dict, out: Path) -> None:
     rate_unit = summary.get("units", {}).get("rate_golden_rule", "")
+    rate_unit = f" {rate_unit}" if rate_unit else ""
     print(f"{summary['title']}: method {summary['method']}, simulated")
-    print(f"  golden-rule rate {summary['rate_golden_rule']:.6g} {rate_unit}, fitted rate "
-          f"{summary['rate_fitted']:.6g} {rate_unit}, final excited population "
+    print(f"  golden-rule rate {summary['rate_golden_rule']:.6g}{rate_unit}, fitted rate "
+          f"{summary['rate_fitted']:.6g}{rate_unit}, final excited population "
           f"{summary['final_excited']:.6g}")
     if "convergence" in summary:
         print(f"  convergence: largest change of P_e on refinement "
