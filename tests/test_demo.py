@@ -1,0 +1,29 @@
+"""`recoilsim demo` end to end in a temporary folder (slow: about a minute on 2 cores)."""
+
+import csv
+import json
+import subprocess
+import sys
+
+import pytest
+
+
+@pytest.mark.slow
+def test_demo_writes_its_figures_and_data(tmp_path):
+    proc = subprocess.run([sys.executable, "-m", "sim.cli", "demo"], cwd=tmp_path,
+                          capture_output=True, text=True, timeout=600)
+    assert proc.returncode == 0, proc.stderr
+    out = tmp_path / "recoilsim-demo"
+    for figure in ("rates.png", "exact/decay.png", "exact/momentum.png", "exact/variance.png",
+                   "compare/compare.png"):
+        assert (out / figure).stat().st_size > 10_000, figure
+        assert figure in proc.stdout or figure.split("/")[-1] in proc.stdout
+    summary = json.loads((out / "exact" / "summary.json").read_text())
+    assert summary["simulated"] is True and summary["method"] == "exact"
+    with open(out / "compare" / "compare.csv") as handle:
+        header = next(csv.reader(handle))
+    assert header[:4] == ["t", "perturbative", "markov", "exact"]
+    with open(out / "sweep" / "sweep.csv") as handle:
+        rows = list(csv.DictReader(handle))
+    assert len(rows) == 4 and all(r["status"] == "ok" for r in rows)
+    assert not list(tmp_path.glob(".*"))
