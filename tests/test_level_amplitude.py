@@ -228,3 +228,62 @@ def test_unconverged_roots_raise(monkeypatch):
 def test_invalid_input_is_rejected(energies, couplings, times):
     with pytest.raises(ValueError):
         level_amplitude(0.0, energies, couplings, times)
+
+
+# --- fast paths: they must reproduce the plain sums -----------------------------------------------
+
+
+def test_uniform_time_grid_matches_direct_sum(monkeypatch):
+    # The factorised phases exp(-i z t0 - i z a B dt) exp(-i z b dt) on a linspace must equal the
+    # direct sum to rounding of the phase z t (|z t| up to ~1e4 here, ulp ~ 2e-12), at late times too.
+    rng = np.random.default_rng(21)
+    star = random_star(rng, 300, degenerate=5)
+    spectrum = star_spectrum(*star)
+    times = np.linspace(-3.0, 4000.0, 1201)
+    fast = spectrum.level_amplitude(times)
+    monkeypatch.setattr(exact, "_uniform_grid", lambda t: None)
+    direct = spectrum.level_amplitude(times)
+    assert np.max(np.abs(fast - direct)) < 1e-11
+    assert exact._uniform_grid(times) is None  # the patch took effect: `direct` is the plain sum
+
+
+def test_uneven_times_use_the_direct_sum():
+    rng = np.random.default_rng(22)
+    star = random_star(rng, 40)
+    times = np.array([0.0, 0.5, 1.7, 2.0, 9.0])
+    assert exact._uniform_grid(times) is None
+    assert exact._uniform_grid(np.linspace(0.0, 9.0, 5)) is not None
+    assert np.max(np.abs(level_amplitude(*star, times) - dense_amplitudes(*star, times)[0])) < 1e-10
+
+
+def test_panelled_pole_sums_match_direct_sums():
+    # Near poles direct, far poles from Chebyshev interpolants: the same sums to rounding of the
+    # direct sum (scale sum |b_i/(z - e_i)|), on an uneven bath with a dense cluster.
+    rng = np.random.default_rng(23)
+    poles = np.sort(np.concatenate([rng.uniform(0.0, 2.0, 2500), rng.uniform(0.9, 0.91, 500)]))
+    weights = rng.uniform(1e-8, 1e-6, poles.size)
+    roots = np.arange(poles.size + 1)
+    anchor = np.clip(roots - rng.integers(0, 2, roots.size), 0, poles.size - 1)
+    gaps = np.diff(poles)
+    offset = np.concatenate(([-0.1], rng.uniform(0.01, 0.99, poles.size - 1), [0.1]))
+    interior = slice(1, -1)
+    offset[interior] *= np.where(anchor[interior] == roots[interior] - 1, 1.0, -1.0) * gaps
+    fast = exact.PanelledPoleSums(poles, weights)(roots, anchor, offset)
+    direct = exact._pole_sums(anchor, offset, poles, weights)
+    scale = np.abs(exact._cauchy_block(poles[anchor], offset, poles)) @ weights
+    assert np.max(np.abs(fast[0] - direct[0]) / scale) < 1e-13
+    assert np.max(np.abs(fast[1] - direct[1]) / direct[1]) < 1e-13
+
+
+@pytest.mark.parametrize("seed", range(3))
+def test_panelled_roots_match_dense_diagonalisation(monkeypatch, seed):
+    # Reference: scipy.linalg.eigh (reference library), with the panelled sums forced on.
+    monkeypatch.setattr(exact, "_PANEL_MIN_POLES", 8)
+    rng = np.random.default_rng(30 + seed)
+    star = random_star(rng, 400, degenerate=6, uncoupled=5)
+    times = np.linspace(0.0, 30.0, 50)
+    level, modes = level_amplitude(*star, times, modes=True)
+    level_ref, modes_ref = dense_amplitudes(*star, times)
+    assert np.max(np.abs(level - level_ref)) < 1e-10
+    assert np.max(np.abs(modes - modes_ref)) < 1e-10
+    assert isinstance(exact.pole_sums_for(np.arange(10.0), np.ones(10)), exact.PanelledPoleSums)
