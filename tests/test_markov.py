@@ -17,7 +17,7 @@ from sim import load_scenario, run
 from sim.field import field_for, packet_for
 from sim.models import model_for
 from sim.rates import EMISSION, channels_1d, kick_moments, template_rate
-from sim.scenario import ScenarioError
+from sim.scenario import ScenarioError, with_keys
 from sim.solvers.markov import (MarkovSolver, direction_channels, direction_quadrature,
                                 lattice_shares)
 from sim.trajectories import binomial_error, surviving_fraction
@@ -127,7 +127,6 @@ def test_recoil_variance_after_full_decay(dims, share, mass):
 # --- against the exact solver ---------------------------------------------------------------
 
 
-@pytest.mark.slow  # the exact solver needs ~2 min on this bath
 def test_weak_coupling_markov_agrees_with_exact():
     # physics.md sec. 4: at weak coupling the non-Markovian remainder is small; 1e-3 over the run
     # (at strength 0.02 the short-time transient alone exceeds it: 1.3e-3, measured)
@@ -135,6 +134,9 @@ def test_weak_coupling_markov_agrees_with_exact():
                         "written yet")
     s = scenario("newton-wigner", strength=0.01, field={"mass": 0.1},
                  run_keys={"t_max": 4000.0, "samples": 61})
+    # nine packet sectors suffice for the exact packet average here: the largest markov-exact
+    # difference is 2.154e-4 with them and 2.154e-4 with the 136 default sectors (measured)
+    s = with_keys(s, {"bath.sectors": 9})
     markov, exact = run(s, method="markov"), run(s, method="exact")
     assert np.max(np.abs(markov.excited - np.interp(markov.times, exact.times, exact.excited))) < 1e-3
 
