@@ -102,9 +102,10 @@ def convergence_report(result, refined_result) -> dict:
 
 def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bool) -> dict:
     """Run the scenario's method, optionally the convergence check, and write the folder."""
-    from .output import write_result
+    from .output import refuse_existing, write_result
     from .solvers import solver_for
 
+    refuse_existing(out, force)  # before the run, not after it
     solver = solver_for(scenario, progress=progress)
     result = solver.run()
     extra = {}

@@ -55,6 +55,16 @@ def atomic_save_figure(fig, path: str | Path, **kwargs) -> None:
         raise
 
 
+def refuse_existing(out: str | Path, force: bool = False) -> None:
+    """Raise OutputExists if `out` is a file, or a non-empty folder and `force` is not given."""
+    out = Path(out)
+    if out.exists() and not out.is_dir():
+        raise OutputExists(f"--out {str(out)!r}: exists and is not a folder")
+    if out.exists() and any(out.iterdir()) and not force:
+        raise OutputExists(f"--out {str(out)!r}: folder exists and is not empty; pass --force to "
+                           "replace it, or choose another folder")
+
+
 @contextmanager
 def staged_folder(out: str | Path, force: bool = False):
     """Yield a temporary folder that replaces `out` as a whole when the block succeeds.
@@ -63,25 +73,52 @@ def staged_folder(out: str | Path, force: bool = False):
     folder is swapped out only after the new one is complete.
     """
     out = Path(out)
-    if out.exists() and not out.is_dir():
-        raise OutputExists(f"--out {str(out)!r}: exists and is not a folder")
-    if out.exists() and any(out.iterdir()) and not force:
-        raise OutputExists(f"--out {str(out)!r}: folder exists and is not empty; pass --force to "
-                           "replace it, or choose another folder")
+    refuse_existing(out, force)
     out.parent.mkdir(parents=True, exist_ok=True)
     stage = Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".part", dir=out.parent))
     try:
         yield stage
-        if out.exists():
-            old = Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".old", dir=out.parent))
-            os.replace(out, old / "previous")
-            os.replace(stage, out)
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.replace(stage, out)
+        _install(stage, out)
     except BaseException:
         shutil.rmtree(stage, ignore_errors=True)
         raise
+
+
+def _install(stage: Path, out: Path) -> None:
+    """Rename the complete `stage` to `out`.  An existing `out` is set aside first and put back
+    if the second rename fails; Ctrl-C and SIGTERM wait until both renames are done."""
+    with _signals_deferred():
+        if not out.exists():
+            os.replace(stage, out)
+            return
+        old = Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".old", dir=out.parent))
+        previous = old / "previous"
+        try:
+            os.replace(out, previous)
+            os.replace(stage, out)
+        except BaseException:
+            if previous.exists() and not out.exists():
+                os.replace(previous, out)
+            if not previous.exists():
+                old.rmdir()
+            raise
+        shutil.rmtree(old, ignore_errors=True)
+
+
+@contextmanager
+def _signals_deferred():
+    """Block SIGINT and SIGTERM in the block (POSIX); a pending one is delivered after it."""
+    import signal
+
+    if not hasattr(signal, "pthread_sigmask"):
+        yield
+        return
+    deferred = {signal.SIGINT, signal.SIGTERM}
+    blocked = signal.pthread_sigmask(signal.SIG_BLOCK, deferred)
+    try:
+        yield
+    finally:
+        signal.pthread_sigmask(signal.SIG_SETMASK, blocked)
 
 
 def _cell(value) -> str:

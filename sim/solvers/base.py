@@ -146,7 +146,8 @@ class Solver:
     def estimate(self) -> Estimate:
         """Size of the run (overridden by solvers with large discretisations)."""
         samples = self.scenario.run.samples
-        return Estimate(states=samples, memory_bytes=64.0 * samples, work=1e3 * samples)
+        return Estimate(states=samples, memory_bytes=64.0 * samples, work=1e3 * samples,
+                        keys=("run.samples",))
 
     def run(self) -> Result:
         """Evolve the scenario and assemble the Result with its summary."""
