@@ -481,14 +481,18 @@ def _plain(mapping: Mapping[str, Any]) -> dict:
 
 
 def _strength_from_lifetime(s: Scenario) -> Scenario:
-    """Set lambda so that the rest-frame golden-rule lifetime 1/Gamma(0) equals coupling.lifetime.
+    """Set lambda so that the rest-frame vacuum golden-rule lifetime 1/Gamma(0) is coupling.lifetime.
 
     Gamma is proportional to lambda^2 for every model (one-particle through its matching), so
     lambda = sqrt(1 / (tau * Gamma_1(0))) with Gamma_1 the rate at lambda = 1.
     """
     from .rates import template_rate
 
-    unit = replace(s, coupling=replace(s.coupling, strength=1.0))
+    # the vacuum emission lifetime of the detector at rest, whatever the packet's level or the
+    # field's temperature (the lifetime a lab quotes)
+    unit = replace(s, coupling=replace(s.coupling, strength=1.0),
+                   packet=replace(s.packet, internal="excited"),
+                   field=replace(s.field, temperature=0.0))
     gamma_1 = float(template_rate(unit, 0.0))
     if not gamma_1 > 0:
         raise ScenarioError(f"coupling.lifetime = {s.coupling.lifetime!r}: the detector at rest "

@@ -225,8 +225,7 @@ def test_rates_are_non_negative_for_both_processes(raw, speeds):
     # the same lambda for every variant (a lifetime would be re-read against each one's rate)
     matching = {"matching": s.coupling.matching} if s.coupling.matching else {}
     # (and no run table: only rates are asked for, so no sampling constraint applies)
-    s = load_scenario({**s.source, "run": {"method": "perturbative"},
-                       "coupling": {"strength": s.coupling.strength, **matching},
+    s = load_scenario({**s.source, "coupling": {"strength": s.coupling.strength, **matching},
                        "run": {"method": "perturbative"}})
     p = np.array(speeds) * s.detector.ground_mass
     emission = template_rate(with_keys(s, {"packet.internal": "excited"}), p)
