@@ -15,7 +15,7 @@ import shutil
 from pathlib import Path
 
 from .output import atomic_write_text, staged_folder, write_result
-from .scenario import load_scenario, with_keys
+from .scenario import load_scenario
 
 #: the demo's sweep: packet widths in Compton wavelengths (four points, log-spaced)
 DEMO_SWEEP = "packet.width=2:50:4log"
@@ -48,8 +48,7 @@ def build_demo(folder: Path, scenario=None) -> dict:
     exact = run(scenario, method="exact")
     write_result(exact, folder / "exact")
     compare_to_folder(scenario, folder / "compare")
-    sweep_scenario = with_keys(scenario, {"run.method": "exact"})
-    counts = run_sweep(sweep_scenario, [parse_vary(DEMO_SWEEP)], folder / "sweep", workers=2)
+    counts = run_sweep(scenario, [parse_vary(DEMO_SWEEP)], folder / "sweep", workers=2)
     return {"rate": report["rate"], "exact": exact.summary, "sweep": counts}
 
 
