@@ -34,11 +34,11 @@ import numpy as np  # noqa: E402
 import qutip  # noqa: E402
 import scipy.sparse  # noqa: E402
 
-from sim.exact import star_spectrum  # noqa: E402
-from sim.rates import packet_rate  # noqa: E402
-from sim.scenario import load_scenario, with_keys  # noqa: E402
-from sim.solvers.base import sample_times  # noqa: E402
-from sim.solvers.exact import ExactSolver  # noqa: E402
+from sim.solvers.exact.star import star_spectrum  # noqa: E402
+from sim.physics.golden_rule import packet_rate  # noqa: E402
+from sim.physics.checks import load_scenario, with_keys  # noqa: E402
+from sim.solvers.common import sample_times  # noqa: E402
+from sim.solvers.exact.solver import ExactSolver  # noqa: E402
 
 STRENGTH = 0.03
 SECTORS = 17

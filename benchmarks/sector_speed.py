@@ -16,7 +16,7 @@ import time
 import numpy as np
 import scipy.linalg
 
-from sim.exact import star_spectrum
+from sim.solvers.exact.star import star_spectrum
 
 DEFAULT_SIZES = (1_000, 3_000, 10_000, 30_000, 100_000)
 DENSE_LIMIT = 3_000

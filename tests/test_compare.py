@@ -7,9 +7,8 @@ import numpy as np
 import pytest
 
 from sim import load_scenario, run
-from sim.compare import COMPARED, compare_to_folder
-from sim.output import OutputExists
-from sim.solvers import METHODS
+from sim.workflows.compare import COMPARED, compare_to_folder
+from sim.errors import OutputExists
 
 SCENARIO = {
     "detector": {"model": "newton-wigner", "ground_mass": 1.0, "gap": 0.5},
@@ -66,15 +65,3 @@ def test_compare_differences_are_taken_from_exact(folder):
 def test_compare_refuses_a_full_folder_without_force(folder):
     with pytest.raises(OutputExists, match="--force"):
         compare_to_folder(load_scenario(SCENARIO), folder)
-
-
-def test_missing_optional_method_is_skipped_with_a_note(tmp_path, monkeypatch):
-    monkeypatch.setitem(METHODS, "fock", "sim.solvers.not_installed:FockSolver")
-    monkeypatch.setitem(METHODS, "exact", "sim.solvers.not_installed_either:ExactSolver")
-    compare_to_folder(load_scenario(SCENARIO), tmp_path / "out")
-    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
-    assert summary["methods"] == ["perturbative", "markov"]
-    assert "not available" in summary["skipped"]["fock"]
-    assert summary["max_difference_from_exact"] is None
-    header, _ = read_csv(tmp_path / "out" / "compare.csv")
-    assert header == ["t", "perturbative", "markov"]

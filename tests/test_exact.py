@@ -11,12 +11,14 @@ import qutip
 import scipy.linalg
 
 import sim
-from sim.bath import bath_for
-from sim.exact import star_spectrum
-from sim.models import EXCITED, GROUND, model_for
-from sim.rates import packet_rate
-from sim.scenario import ScenarioError, load_scenario
-from sim.solvers.exact import ExactSolver
+from sim.solvers.exact.baths import bath_for
+from sim.solvers.exact.star import star_spectrum
+from sim.physics.models import EXCITED, GROUND, model_for
+from sim.physics.golden_rule import packet_rate
+from sim.errors import ScenarioError
+from sim.physics.checks import load_scenario
+from sim.result import result_of
+from sim.solvers.exact.solver import ExactSolver
 
 
 def scenario(model="newton-wigner", dims=1, strength=0.03, *, mass=0.0, gap=0.5, ground_mass=1.0,
@@ -64,7 +66,7 @@ def test_norm_and_total_momentum_conservation():
                    field__cutoff=1.0, samples=61)
     s = load_scenario(raw)
     solver = ExactSolver(s)
-    result = solver.run()
+    result = result_of(solver)
     assert not any("norm drift" in w for w in result.warnings)
     assert result.final_state.tr() == pytest.approx(1.0, abs=1e-10)
     rho = result.final_state.full()

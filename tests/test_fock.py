@@ -17,12 +17,14 @@ import numpy as np
 import pytest
 import qutip
 
-from sim.exact import level_amplitude
-from sim.output import write_result
-from sim.scenario import ScenarioError, load_scenario, with_keys
-from sim.solvers import run
-from sim.solvers.fock import (FockSolver, counter_rotating_figure, fock_basis, occupation_counts,
-                              state_count)
+from sim.solvers.exact.star import level_amplitude
+from sim.workflows.run import write_result
+from sim.errors import ScenarioError
+from sim.physics.checks import load_scenario, with_keys
+from sim import run
+from sim.plotting import counter_rotating_figure
+from sim.solvers.fock.basis import fock_basis, occupation_counts, state_count
+from sim.solvers.fock.solver import FockSolver
 
 ROOT = Path(__file__).resolve().parents[1]
 

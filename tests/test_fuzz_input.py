@@ -8,7 +8,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from sim import ScenarioError, load_scenario
-from sim.scenario import SCHEMA, read_scenario_file
+from sim.config.scenario import read_scenario_file
+from sim.config.schema import SCHEMA
 
 VALID = {
     "detector": {"model": "galilean", "ground_mass": 2.0, "gap": 0.4},

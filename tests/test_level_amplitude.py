@@ -9,8 +9,8 @@ import scipy.linalg
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from sim import exact
-from sim.exact import bright_modes, level_amplitude, sector_lamb_shift, star_spectrum
+from sim.solvers.exact import star as exact
+from sim.solvers.exact.star import bright_modes, level_amplitude, sector_lamb_shift, star_spectrum
 
 
 def random_star(rng, size, *, degenerate=0, near_degenerate=0, uncoupled=0):

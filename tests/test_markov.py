@@ -14,13 +14,14 @@ import qutip
 from hypothesis import given
 
 from sim import load_scenario, run
-from sim.field import field_for, packet_for
-from sim.models import model_for
-from sim.rates import EMISSION, channels_1d, kick_moments, template_rate
-from sim.scenario import ScenarioError, with_keys
-from sim.solvers.markov import (MarkovSolver, direction_channels, direction_quadrature,
-                                lattice_shares)
-from sim.trajectories import binomial_error, surviving_fraction
+from sim.physics.field import field_for, packet_for
+from sim.physics.models import model_for
+from sim.physics.golden_rule import EMISSION, channels_1d, kick_moments, template_rate
+from sim.errors import ScenarioError
+from sim.physics.checks import with_keys
+from sim.solvers.markov.lattice import direction_channels, direction_quadrature, lattice_shares
+from sim.solvers.markov.solver import MarkovSolver
+from sim.solvers.markov.emissions import binomial_error, surviving_fraction
 
 
 def scenario(model="newton-wigner", dims=1, mass=1.0, gap=0.5, strength=0.05, momentum=0.3,

@@ -16,15 +16,18 @@ from hypothesis import HealthCheck, given, reject, settings
 from hypothesis import strategies as st
 from scipy import constants as const
 
-from sim.bath import bath_for
-from sim.exact import level_amplitude, star_spectrum
-from sim.field import packet_for
-from sim.output import result_tables
-from sim.rates import packet_rate, template_rate
-from sim.scenario import MODEL_NAMES, ScenarioError, load_scenario, with_keys
+from sim.solvers.exact.baths import bath_for
+from sim.solvers.exact.star import level_amplitude, star_spectrum
+from sim.physics.field import packet_for
+from sim.io.writers import result_tables
+from sim.physics.golden_rule import packet_rate, template_rate
+from sim.config.registry import MODEL_NAMES
+from sim.errors import ScenarioError
+from sim.physics.checks import load_scenario, with_keys
 from sim.solvers import solver_for
-from sim.solvers.base import NORM_TOLERANCE, assemble, sample_times
-from sim.solvers.exact import ExactSolver
+from sim.result import assemble, result_of
+from sim.solvers.common import NORM_TOLERANCE, sample_times
+from sim.solvers.exact.solver import ExactSolver
 
 #: rounding slack for probabilities computed as sums of |amplitude|^2
 ROUNDING = 1e-9
@@ -117,9 +120,8 @@ def loaded(raw: dict):
 def evolved(s):
     """(times, Evolution, Result) of one run of the scenario's own method."""
     solver = solver_for(s)
-    times = sample_times(s)
-    evo = solver.evolve(times)
-    return times, evo, assemble(solver.name, s, times, evo, 0.0)
+    evo = solver.run()
+    return evo.times, evo, assemble(solver.name, s, evo)
 
 
 # --- probabilities and norm -------------------------------------------------------------------
@@ -295,11 +297,11 @@ def in_units(raw: dict, gap_ev: float, style: str) -> dict:
 def check_unit_invariance(raw: dict, gap_ev: float):
     natural = loaded(raw)
     e0 = gap_ev / raw["detector"]["gap"]
-    reference = result_tables(solver_for(natural).run())["population"]
+    reference = result_tables(result_of(solver_for(natural)))["population"]
     for style, unit_s in (("A", 1e-9), ("B", 1e-12)):
         s = load_scenario(in_units(raw, gap_ev, style))
         assert s.units is not None
-        table = result_tables(solver_for(s).run())["population"]
+        table = result_tables(result_of(solver_for(s)))["population"]
         # output times are in the unit written for t_max (ns, ps): back to natural units, where
         # the time unit is hbar / E0 with E0 = gap_ev / gap eV
         natural_t = np.asarray(table["t"]) * unit_s / (HBAR_EV_S / e0)

@@ -13,9 +13,9 @@ import numpy as np
 import pytest
 
 from sim import load_scenario, packet_rate, rest_rate, template_rate
-from sim.field import Field
-from sim.models import MODELS
-from sim.rates import EMISSION, kick_moments
+from sim.physics.field import Field
+from sim.physics.models import MODELS
+from sim.physics.golden_rule import EMISSION, kick_moments
 
 RTOL = 1e-6
 
@@ -203,7 +203,7 @@ def test_packet_average_matches_independent_quadrature_3d():
 @pytest.mark.parametrize("dims,share", [(1, 1.0), (3, 1 / 3)])
 def test_recoil_moments_of_a_static_detector(dims, share):
     # physics.md sec. 3: isotropic emission of k*: variance grows by k*^2 (1D), k*^2/3 per axis (3D)
-    from sim.models import model_for
+    from sim.physics.models import model_for
 
     s = scenario(dims=dims, mass=1e9, gap=0.5)
     field = Field(dims, 0.0, 0.0, np.inf, 0.0)

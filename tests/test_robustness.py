@@ -18,10 +18,10 @@ from pathlib import Path
 import pytest
 
 import sim.solvers.base
+import sim.solvers.common
 from sim.cli import main
-from sim.output import write_result
-from sim.scenario import load_scenario
-from sim.solvers import run
+from sim.workflows.run import write_result
+from sim import run
 
 RECOILSIM = [sys.executable, "-m", "sim.cli"]
 

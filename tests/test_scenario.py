@@ -8,7 +8,8 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from sim import ScenarioError, load_scenario
-from sim.scenario import SCHEMA, with_keys
+from sim.config.schema import SCHEMA
+from sim.physics.checks import with_keys
 
 BASE = {
     "title": "test",

@@ -12,10 +12,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from sim.cli import UsageError, main
-from sim.rates import packet_rate
-from sim.scenario import load_scenario, with_keys
-from sim.sweep import parse_vary, run_sweep, sweep_points
+from sim.cli import main
+
+from sim.errors import UsageError
+from sim.physics.golden_rule import packet_rate
+from sim.physics.checks import load_scenario, with_keys
+from sim.workflows.sweep import parse_vary, run_sweep, sweep_points
 
 BASE = """
 title = "sweep test"

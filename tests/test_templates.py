@@ -9,10 +9,13 @@ from pathlib import Path
 import pytest
 
 from sim.cli import main
-from sim.output import OutputExists
-from sim.rates import rest_rate
-from sim.scenario import SCHEMA, ScenarioError, load_scenario
-from sim.templates import MEANINGS, template_text, write_template
+from sim.errors import OutputExists
+from sim.physics.golden_rule import rest_rate
+from sim.config.schema import SCHEMA
+from sim.errors import ScenarioError
+from sim.physics.checks import load_scenario
+from sim.config.template import MEANINGS, template_text
+from sim.workflows.new import write_template
 
 ROOT = Path(__file__).resolve().parents[1]
 SCENARIOS = sorted((ROOT / "scenarios").glob("*.toml"))

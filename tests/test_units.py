@@ -12,11 +12,14 @@ import math
 import numpy as np
 import pytest
 
-from sim.output import write_result
-from sim.rates import packet_rate, rest_rate
-from sim.scenario import SCHEMA, ScenarioError, load_scenario
-from sim.solvers import run
-from sim.units import UnitSystem, recoil_velocity, resolve_units
+from sim.workflows.run import write_result
+from sim.physics.golden_rule import packet_rate, rest_rate
+from sim.config.schema import SCHEMA
+from sim.errors import ScenarioError
+from sim.physics.checks import load_scenario
+from sim import run
+from sim.config.units import UnitSystem, resolve_units
+from sim.physics.golden_rule import recoil_velocity
 
 HBAR_C_EV_NM = 197.3269804  # eV nm (CODATA, from memory)
 U_EV = 931.49410242e6  # eV (CODATA 2018, from memory)

@@ -1,37 +1,53 @@
-"""Solvers: one front door (`run`), a name -> class map (`METHODS`), one file per method."""
+"""Solvers: a name -> class registry (`METHODS`), one package per method over `Solver`.
+
+A solver turns a scenario into an `Evolution` (raw observables over the sample times); the
+`Result` with its summary is assembled one layer up (`sim.result.run`, the front door).
+"""
 
 from __future__ import annotations
 
 from importlib import import_module
 
-from ..result import Result
-from ..scenario import Scenario, load_scenario
+from ..config.registry import METHODS
+from ..physics.checks import load_scenario
 from .base import Solver
-
-#: method key -> "module:class"; classes are imported when first used
-METHODS: dict[str, str] = {
-    "perturbative": "sim.solvers.perturbative:PerturbativeSolver",
-    "exact": "sim.solvers.exact:ExactSolver",
-    "markov": "sim.solvers.markov:MarkovSolver",
-    "fock": "sim.solvers.fock:FockSolver",
-}
 
 
 def solver_class(method: str) -> type[Solver]:
-    """The solver class registered for `method`."""
+    """The solver class registered for `method` (imported when first asked for).
+
+    Parameters
+    ----------
+    method : str
+        A key of `METHODS`.
+
+    Returns
+    -------
+    type
+        The `Solver` subclass.
+    """
     module, name = METHODS[method].split(":")
     return getattr(import_module(module), name)
 
 
 def solver_for(scenario, method: str | None = None, **options) -> Solver:
-    """A solver for the scenario (its own `run.method` unless `method` is given)."""
+    """A solver for the scenario: its own `run.method` unless `method` is given.
+
+    Parameters
+    ----------
+    scenario : Scenario, str, Path or dict
+        Loaded with `sim.physics.checks.load_scenario` when it is not a Scenario yet.
+    method : str, optional
+        A key of `METHODS`.
+    **options
+        Passed to the solver (e.g. ``progress=True``).
+
+    Returns
+    -------
+    Solver
+    """
     s = load_scenario(scenario)
     return solver_class(method or s.run.method)(s, **options)
 
 
-def run(scenario: Scenario | str | dict, method: str | None = None, **options) -> Result:
-    """Evolve a scenario with its `run.method` (or `method`) and return the Result."""
-    return solver_for(scenario, method, **options).run()
-
-
-__all__ = ["METHODS", "Solver", "run", "solver_class", "solver_for"]
+__all__ = ["METHODS", "Solver", "solver_class", "solver_for"]

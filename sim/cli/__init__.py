@@ -1,0 +1,5 @@
+"""The `recoilsim` command line (argparse only; nothing imports it)."""
+
+from .commands import build_parser, main
+
+__all__ = ["build_parser", "main"]

@@ -1,0 +1,251 @@
+"""The `recoilsim` command line.
+
+    recoilsim demo                      bundled default scenario end to end, into ./recoilsim-demo/
+    recoilsim rates SCENARIO            golden-rule template function and packet-averaged rate
+    recoilsim run SCENARIO --out DIR    time evolution with the scenario's method
+    recoilsim compare SCENARIO --out DIR  all methods side by side
+    recoilsim sweep SCENARIO --vary KEY=SPEC --out DIR  parameter sweeps
+    recoilsim new NAME                  a commented template scenario
+    recoilsim figures                   regenerate the README's figures into figures/
+
+Bad input prints one line per problem to stderr and exits with status 2.  This module only
+parses arguments and prints: what each command does is in `sim.workflows`, and every import
+of the package's layers happens when a command needs it, so `recoilsim --help` stays quick.
+Figures are drawn with matplotlib's file backend (Agg) unless MPLBACKEND says otherwise.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import sys
+from pathlib import Path
+
+from ..errors import OutputExists, ScenarioError, UsageError
+
+EXIT_BAD_INPUT = 2
+
+
+def _momenta_option(text: str):
+    """--at P1,P2,...: the momenta as an array."""
+    import numpy as np
+
+    try:
+        values = [float(x) for x in text.split(",") if x.strip()]
+    except ValueError:
+        raise UsageError(f"--at {text!r}: expected comma-separated numbers, e.g. --at 0,0.5,1") from None
+    if not values or not all(math.isfinite(v) for v in values):
+        raise UsageError(f"--at {text!r}: expected comma-separated finite numbers")
+    return np.array(values)
+
+
+def _load(path: str):
+    """The scenario file at `path`, loaded and validated."""
+    from ..physics.checks import load_scenario
+
+    return load_scenario(path)
+
+
+def cmd_rates(args) -> int:
+    from ..workflows.rates import rates_report, write_rates_figure
+
+    scenario = _load(args.scenario)
+    report = rates_report(scenario, _momenta_option(args.at) if args.at else None)
+    if args.plot:
+        write_rates_figure(scenario, args.plot)
+    if args.json:
+        print(json.dumps(report))
+        return 0
+    kind = "excitation" if scenario.packet.internal == "ground" else "decay"
+    print(f"{scenario.title}  [{scenario.detector.model}, {scenario.dimensions}D, {kind}]")
+    units = report.get("units", {"rate": "", "p": ""})
+    print(f"packet-averaged golden-rule rate  {report['rate']:.10g} {units['rate']}")
+    print(f"rest-frame rate Gamma(0)          {report['rest_rate']:.10g} {units['rate']}")
+    print(f"{'p ' + units['p']:>16}  {'Gamma(p) ' + units['rate']:>16}")
+    for p, r in zip(report["template"]["p"], report["template"]["rate"]):
+        print(f"{p:16.8g}  {r:16.10g}")
+    if args.plot:
+        print(f"figure: {args.plot}")
+    return 0
+
+
+def print_run_summary(summary: dict, out: Path) -> None:
+    rate_unit = summary.get("units", {}).get("rate_golden_rule", "")
+    rate_unit = f" {rate_unit}" if rate_unit else ""
+    print(f"{summary['title']}: method {summary['method']}, simulated")
+    print(f"  golden-rule rate {summary['rate_golden_rule']:.6g}{rate_unit}, fitted rate "
+          f"{summary['rate_fitted']:.6g}{rate_unit}, final excited population "
+          f"{summary['final_excited']:.6g}")
+    if "convergence" in summary:
+        print(f"  convergence: largest change of P_e on refinement "
+              f"{summary['convergence']['max_change_excited']:.3g}")
+    for w in summary.get("warnings", []):
+        print(f"  warning: {w}")
+    print(f"  files in {out}/")
+
+
+def cmd_run(args) -> int:
+    from ..workflows.run import dry_run, run_to_folder
+
+    scenario = _load(args.scenario)
+    if args.dry_run:
+        estimate, available = dry_run(scenario)
+        print(f"{scenario.title}: method {scenario.run.method} would use {estimate.describe()}; "
+              f"{available / 2**30:.3g} GiB available"
+              + (f"; size set by {', '.join(estimate.keys)}" if estimate.keys else ""))
+        return 0
+    if args.out is None:
+        raise UsageError("run: --out DIR is required (or --dry-run)")
+    out = Path(args.out)
+    summary = run_to_folder(scenario, out, check=args.check, force=args.force,
+                            progress=sys.stderr.isatty())
+    print_run_summary(summary, out)
+    return 0
+
+
+def cmd_demo(args) -> int:
+    from ..workflows.demo import run_demo
+
+    out = Path(args.out)
+    report = run_demo(out, force=args.force)
+    summary = report["exact"]
+    print(f"{report['title']} (simulated)")
+    print(f"  golden-rule rate {report['rate']:.6g}; exact fitted rate {summary['rate_fitted']:.6g}")
+    for w in summary.get("warnings", []):
+        print(f"  warning: {w}")
+    print(f"  figures: {out}/rates.png, {out}/exact/decay.png, {out}/exact/momentum.png, "
+          f"{out}/exact/variance.png, {out}/compare/compare.png")
+    print(f"  data: {out}/exact/*.csv, {out}/compare/compare.csv, {out}/sweep/sweep.csv")
+    return 0
+
+
+def cmd_compare(args) -> int:
+    from ..workflows.compare import compare_to_folder
+
+    compare_to_folder(_load(args.scenario), Path(args.out), force=args.force)
+    print(f"comparison written to {args.out}/")
+    return 0
+
+
+def cmd_sweep(args) -> int:
+    """`recoilsim sweep`: parse, run or resume, print a one-paragraph report."""
+    from ..workflows.sweep import TABLE_FILE, parse_vary, run_sweep
+
+    scenario = _load(args.scenario)
+    axes = [parse_vary(text) for text in args.vary]
+    out = Path(args.out)
+    counts = run_sweep(scenario, axes, out, workers=args.workers, scheduler=args.scheduler,
+                       progress=sys.stderr.isatty())
+    print(f"sweep of {counts['points']} points (simulated): {counts['ok']} ok, "
+          f"{counts['failed']} failed, {counts['skipped']} finished earlier -> {out / TABLE_FILE}")
+    if counts["lost"]:
+        print(f"recoilsim: {counts['lost']} points lost with their worker "
+              f"({counts['lost_errors'][0]}); rerun the same command to resume", file=sys.stderr)
+    return 0 if counts["ok"] == counts["points"] else 1
+
+
+def cmd_new(args) -> int:
+    from ..workflows.new import write_template
+
+    path = write_template(args.name, force=args.force)
+    print(f"wrote {path}")
+    return 0
+
+
+def cmd_figures(args) -> int:
+    from ..workflows.demo import make_readme_figures
+
+    for path in make_readme_figures(Path(args.out)):
+        print(path)
+    return 0
+
+
+def _force_option(parser, what: str = "an existing output folder") -> None:
+    parser.add_argument("--force", action="store_true", help=f"replace {what}")
+
+
+def _command(sub, name: str, func, help_text: str, *, scenario: bool = True):
+    """A sub-command `name` run by `func`, with the SCENARIO argument unless `scenario` is False."""
+    p = sub.add_parser(name, help=help_text)
+    if scenario:
+        p.add_argument("scenario", help="scenario TOML file")
+    p.set_defaults(func=func)
+    return p
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of every sub-command."""
+    parser = argparse.ArgumentParser(prog="recoilsim", description=(
+        "Simulated decay of a two-level detector with a quantum centre of mass."))
+    sub = parser.add_subparsers(dest="command", required=True)
+
+    p = _command(sub, "demo", cmd_demo, "run the bundled default scenario end to end", scenario=False)
+    p.add_argument("--out", default="recoilsim-demo", help="output folder (default ./recoilsim-demo)")
+    _force_option(p)
+
+    p = _command(sub, "rates", cmd_rates, "golden-rule template function and packet-averaged rate")
+    p.add_argument("--at", help="comma-separated momenta along the packet axis")
+    p.add_argument("--json", action="store_true", help="print one JSON object")
+    p.add_argument("--plot", metavar="FILE.png", help="figure of the three models' rates")
+
+    p = _command(sub, "run", cmd_run, "time evolution with the scenario's run.method")
+    p.add_argument("--out", help="output folder")
+    p.add_argument("--check", action="store_true", help="rerun refined and report convergence")
+    p.add_argument("--dry-run", action="store_true", help="print the memory and work estimate only")
+    _force_option(p)
+
+    p = _command(sub, "compare", cmd_compare, "perturbative, markov, exact (and fock) side by side")
+    p.add_argument("--out", required=True, help="output folder")
+    _force_option(p)
+
+    p = _command(sub, "sweep", cmd_sweep, "sweep scenario keys over values, in parallel, resumable")
+    p.add_argument("--vary", action="append", required=True, metavar="KEY=SPEC",
+                   help="dotted key and values: a:b:n (linear), a:b:nlog (log) or v1,v2,...")
+    p.add_argument("--out", required=True)
+    p.add_argument("--workers", type=int, default=None, help="local worker processes")
+    p.add_argument("--scheduler", default=None, help="address of an existing Dask scheduler")
+
+    p = _command(sub, "new", cmd_new, "write a commented template scenario NAME.toml", scenario=False)
+    p.add_argument("name")
+    _force_option(p, "an existing file NAME.toml")
+
+    p = _command(sub, "figures", cmd_figures, "regenerate the README's figures", scenario=False)
+    p.add_argument("--out", default="figures")
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """The `recoilsim` command: parse `argv` (default sys.argv[1:]), run, return the exit status."""
+    args = build_parser().parse_args(argv)
+    os.environ.setdefault("MPLBACKEND", "Agg")  # files, not windows
+    try:
+        return args.func(args)
+    except ScenarioError as exc:
+        for line in exc.problems:
+            print(f"recoilsim: {line}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except (UsageError, OutputExists) as exc:
+        print(f"recoilsim: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except BrokenPipeError:  # output piped into a program that stopped reading (e.g. head)
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
+    except KeyboardInterrupt:
+        print("recoilsim: interrupted; no partial output was left behind", file=sys.stderr)
+        return 130
+    except MemoryError:
+        print("recoilsim: ran out of memory; `recoilsim run SCENARIO --dry-run` shows the "
+              "estimate; lower the [bath] or [grid] sizes", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except Exception as exc:  # the last line of defence: one line, no traceback
+        if os.environ.get("RECOILSIM_DEBUG"):
+            raise
+        print(f"recoilsim: internal error ({type(exc).__name__}: {exc}); rerun with "
+              "RECOILSIM_DEBUG=1 for the traceback and please report it", file=sys.stderr)
+        return 1
+
+
+if __name__ == "__main__":
+    sys.exit(main())

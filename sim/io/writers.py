@@ -1,0 +1,153 @@
+"""Writing a Result's data: CSV tables and summary.json, in output units, atomically.
+
+`result_tables` gives a run's tables (file stem -> column -> values) in the output units of a
+scenario with units (natural units otherwise); `file_summary` the summary as written.  The
+figures are drawn by `sim.plotting`; a whole run folder is put together by
+`sim.workflows.run.write_result`.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from scipy import constants as const
+
+from ..config.units import SUMMARY_KEYS, UnitSystem
+from ..errors import OutputExists
+from ..physics.golden_rule import recoil_velocity
+from ..result import Result
+from .atomic import atomic_write_text, staged_folder
+
+
+def refuse_existing(out: str | Path, force: bool = False) -> None:
+    """Raise OutputExists if `out` is a file, or a non-empty folder and `force` is not given."""
+    out = Path(out)
+    if out.exists() and not out.is_dir():
+        raise OutputExists(f"--out {str(out)!r}: exists and is not a folder")
+    if out.exists() and any(out.iterdir()) and not force:
+        raise OutputExists(f"--out {str(out)!r}: folder exists and is not empty; pass --force to "
+                           "replace it, or choose another folder")
+
+
+@contextmanager
+def output_folder(out: str | Path, force: bool = False):
+    """A staged folder (`sim.io.atomic.staged_folder`) that replaces `out` when the block
+    succeeds; OutputExists before anything runs if `out` holds files and `force` is not given."""
+    refuse_existing(out, force)
+    with staged_folder(out) as stage:
+        yield stage
+
+
+def _cell(value) -> str:
+    if isinstance(value, str):
+        return value
+    if isinstance(value, (int, np.integer)) and not isinstance(value, bool):
+        return str(int(value))
+    value = float(value)
+    return "nan" if math.isnan(value) else repr(value) if value.is_integer() else f"{value:.12g}"
+
+
+def csv_text(columns: dict[str, np.ndarray | list]) -> str:
+    """A CSV table: header row of column names, one row per entry."""
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    names = list(columns)
+    writer.writerow(names)
+    for row in zip(*(columns[n] for n in names)):
+        writer.writerow([_cell(v) for v in row])
+    return buffer.getvalue()
+
+
+def json_safe(value):
+    """Recursively replace nan/inf by None and numpy scalars/arrays by Python values."""
+    if isinstance(value, dict):
+        return {str(k): json_safe(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [json_safe(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return json_safe(value.tolist())
+    if isinstance(value, (np.floating, float)):
+        return float(value) if math.isfinite(value) else None
+    if isinstance(value, np.integer):
+        return int(value)
+    if isinstance(value, np.bool_):
+        return bool(value)
+    return value
+
+
+def snapshot_column(t: float) -> str:
+    """Column name of a momentum snapshot in momentum.csv."""
+    return f"t={t:.6g}"
+
+
+def result_tables(result: Result) -> dict[str, dict[str, np.ndarray]]:
+    """The CSV tables of a result, in output units: file stem -> column -> values."""
+    units = result.scenario.units
+    conv = (lambda column, values: units.to_output(column, values)) if units else (
+        lambda column, values: np.asarray(values))
+    t = conv("t", result.times)
+    tables = {
+        "population": {"t": t, "excited": result.excited},
+        "recoil": {"t": t, "p_mean": conv("p_mean", result.p_mean),
+                   "p_var": conv("p_var", result.p_var), "x_var": conv("x_var", result.x_var),
+                   "purity": result.purity},
+    }
+    momentum = {"p": conv("p", result.momentum_grid)}
+    for j, ts in enumerate(result.snapshot_times):
+        name = snapshot_column(float(conv("t", np.array([ts]))[0]))
+        momentum[name] = conv("density", result.momentum_density[:, j])
+    tables["momentum"] = momentum
+    for name, columns in result.tables.items():
+        tables[name] = {c: (conv(c, v) if c != "trajectory" else v) for c, v in columns.items()}
+    return tables
+
+
+def file_summary(result: Result, extra_summary: dict | None = None) -> dict:
+    """The summary as written to summary.json: in output units when the scenario has units."""
+    summary = dict(result.summary)
+    if extra_summary:
+        summary.update(extra_summary)
+    units = result.scenario.units
+    if units is not None:
+        summary.update(unit_entries(units, result))
+    return summary
+
+
+def unit_entries(units: UnitSystem, result: Result) -> dict:
+    """summary.json entries of a run in units: "units" (every column written -> unit),
+    `recoil_velocity_m_s`, the natural energy unit, and the summary rates, Lamb shift and
+    t_max in output units (their units listed in "units" too)."""
+    columns = {c for table in result_tables(result).values() for c in table}
+    names = {c: units.column_unit(c) for c in sorted(columns)}
+    entries: dict[str, Any] = {}
+    for key in SUMMARY_KEYS:
+        if key in result.summary:
+            entries[key] = float(units.to_output(key, result.summary[key]))
+            names[key] = units.column_unit(key)
+    names["recoil_velocity_m_s"] = "m/s"
+    names["natural_energy_unit_eV"] = "eV"
+    names["resolved"] = ("natural units: hbar = c = 1, energy unit E0 = detector.gap = "
+                         f"{units.energy_joule / const.e:.10g} eV")
+    return {"units": names, "recoil_velocity_m_s": recoil_velocity(result.scenario),
+            "natural_energy_unit_eV": units.energy_joule / const.e, **entries}
+
+
+def write_tables(result: Result, folder: str | Path, extra_summary: dict | None = None) -> dict:
+    """Write every CSV table of a run into `folder`; returns the summary to be written with it
+    (`file_summary`)."""
+    folder = Path(folder)
+    for name, columns in result_tables(result).items():
+        atomic_write_text(folder / f"{name}.csv", csv_text(columns))
+    return file_summary(result, extra_summary)
+
+
+def write_json(path: str | Path, data) -> None:
+    """Write `data` as indented JSON (nan and inf as null), atomically."""
+    atomic_write_text(path, json.dumps(json_safe(data), indent=2) + "\n")

@@ -1,0 +1,87 @@
+"""The scalar field: dispersion, smearing form factor, hard UV cutoff and thermal occupation.
+
+phi(x) = Int d^dk [a_k e^{ik.x} + h.c.] F(k) / sqrt((2 pi)^d 2 w_k),  w_k = sqrt(k^2 + m^2),
+with F the smearing form factor.  Momenta in energy units (hbar = c = 1).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .models import EXCITED
+from .packet import Packet
+
+#: automatic UV cutoff: this many times the largest energy a quantum can carry (see default_cutoff)
+CUTOFF_HEADROOM = 2.0
+#: thermal absorption: quanta up to this many temperatures above the gap are kept by the cutoff
+THERMAL_REACH = 30.0
+
+
+@dataclass(frozen=True)
+class Field:
+    """A real scalar field in `dimensions` spatial dimensions with a hard cutoff |k| <= cutoff.
+
+    `cutoff` may be infinite (no cutoff): the golden rule needs none; bath solvers choose a
+    finite one with `default_cutoff` when the scenario gives none.
+    """
+
+    dimensions: int
+    mass: float
+    smearing: float
+    cutoff: float
+    temperature: float
+
+    def frequency(self, k):
+        """w_k = sqrt(k^2 + m^2) (energy units)."""
+        k = np.asarray(k, dtype=float)
+        return np.sqrt(k * k + self.mass * self.mass)
+
+    def form_factor(self, k):
+        """Gaussian smearing F(k) = exp(-k^2 s^2 / 2); F = 1 for a point-like detector."""
+        k = np.asarray(k, dtype=float)
+        return np.exp(-0.5 * (k * self.smearing) ** 2)
+
+    def occupation(self, w):
+        """Bose-Einstein n(w) = 1 / (exp(w/T) - 1); zero in the vacuum (T = 0)."""
+        w = np.asarray(w, dtype=float)
+        if self.temperature == 0:
+            return np.zeros_like(w)
+        with np.errstate(over="ignore"):
+            return 1.0 / np.expm1(w / self.temperature)
+
+    def mode_weight(self, k):
+        """F(k)^2 / ((2 pi)^d 2 w_k): |g_P(k)|^2 per d^dk divided by (coupling * V)^2."""
+        k = np.asarray(k, dtype=float)
+        return self.form_factor(k) ** 2 / ((2 * np.pi) ** self.dimensions * 2 * self.frequency(k))
+
+    def inside(self, k):
+        """True where |k| is kept by the hard cutoff."""
+        return np.asarray(k) <= self.cutoff
+
+
+def default_cutoff(scenario, model, packet: Packet) -> float:
+    """Automatic UV cutoff of a truncated bath when `[field] cutoff` is not given.
+
+    An emitted quantum carries at most the excited energy above M_g, w_k <= E_e(P) - M_g; the
+    cutoff is CUTOFF_HEADROOM times that at the packet's fastest momentum, raised by
+    THERMAL_REACH * T in a thermal field so that absorption is not cut off.
+    """
+    p_fast = packet.fastest_momentum()
+    reach = float(model.energy(EXCITED, p_fast))
+    return CUTOFF_HEADROOM * (reach + THERMAL_REACH * scenario.field.temperature)
+
+
+def field_for(scenario, model=None) -> Field:
+    """The scenario's field; with `model`, a bath field whose cutoff is always finite."""
+    f = scenario.field
+    cutoff = f.cutoff
+    if cutoff is None:
+        cutoff = np.inf if model is None else default_cutoff(scenario, model, packet_for(scenario))
+    return Field(f.dimensions, f.mass, f.smearing, cutoff, f.temperature)
+
+
+def packet_for(scenario) -> Packet:
+    """The scenario's Gaussian packet."""
+    return Packet(scenario.packet.width, scenario.packet.momentum)

@@ -1,0 +1,75 @@
+"""The one result type of a run: every method's observables over time, with its summary.
+
+Figures of a Result are drawn by `sim.plotting`, which registers its drawing functions in
+`DRAWERS` when it is imported (`import sim` does); `Result.plot` draws through it, so the result
+layer never imports the plotting layer.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+import numpy as np
+
+#: figure name -> function(result, ax) -> ax, filled in by sim.plotting on import
+DRAWERS: dict[str, Callable] = {}
+
+
+@dataclass
+class Result:
+    """Simulated time evolution of one scenario by one method.
+
+    Arrays over `times` (time units): `excited` (excited-state population), `p_mean`, `p_var`
+    (COM momentum mean and variance along the packet axis), `x_var` (position variance along the
+    axis), `purity` (Tr rho^2 of the reduced COM state); `nan` where a method does not compute a
+    quantity.  `momentum_density[:, j]` is the ground-state COM momentum density on
+    `momentum_grid` (along the packet axis) at `snapshot_times[j]`; `initial_density` is the
+    packet's density there at t = 0.  `tables` holds method-specific extra tables (name ->
+    column -> array), written as DIR/<name>.csv.  `final_state` is the final reduced COM state
+    as a `qutip.Qobj` where the solver has it.
+    """
+
+    method: str
+    scenario: Any
+    times: np.ndarray
+    excited: np.ndarray
+    p_mean: np.ndarray
+    p_var: np.ndarray
+    x_var: np.ndarray
+    purity: np.ndarray
+    momentum_grid: np.ndarray
+    snapshot_times: np.ndarray
+    momentum_density: np.ndarray
+    initial_density: np.ndarray
+    summary: dict = field(default_factory=dict)
+    tables: dict = field(default_factory=dict)
+    final_state: Any = None
+
+    @property
+    def warnings(self) -> list[str]:
+        return self.summary.get("warnings", [])
+
+    def to_dataframe(self):
+        """Time series as a pandas DataFrame (columns t, excited, p_mean, p_var, x_var, purity)."""
+        try:
+            import pandas as pd
+        except ImportError as exc:  # pandas is optional
+            raise ImportError("Result.to_dataframe needs pandas: pip install pandas") from exc
+        return pd.DataFrame({"t": self.times, "excited": self.excited, "p_mean": self.p_mean,
+                             "p_var": self.p_var, "x_var": self.x_var, "purity": self.purity})
+
+    def plot(self, ax=None, figure: str = "decay"):
+        """Draw one of the run's figures into `ax` (a new figure if None); returns the axes.
+
+        Parameters
+        ----------
+        ax : matplotlib Axes, optional
+        figure : str
+            "decay" (P_e(t) on a log axis with its golden-rule exponential), "momentum" or
+            "variance" (the names of `sim.plotting.FIGURES`).
+        """
+        if figure not in DRAWERS:
+            raise LookupError(f"figure {figure!r}: no such figure; allowed: "
+                              + (", ".join(DRAWERS) or "none (import sim.plotting first)"))
+        return DRAWERS[figure](self, ax)

@@ -1,0 +1,467 @@
+"""Truncated baths of field modes for the exact single-excitation solver.
+
+Under the rotating-wave approximation |e> (x) psi (x) vac splits into total-momentum sectors P: a
+level E_e(P) coupled to modes eps = E_g(|P - k|) + w_k with
+
+    g_P(k) = c V(|P|, |P - k|) F(k) / sqrt((2 pi)^d 2 w_k)   per sqrt(d^dk),
+
+so a discrete mode of phase-space volume dV carries g = sqrt(|g_P(k)|^2 dV) (energy units).
+Energies are measured from M_g and come from the model (`sim.models`), couplings from
+`sim.physics.golden_rule.coupling_density`; nothing is re-derived here.
+
+1D: a periodic box of length L.  Field modes on the lattice k = 2 pi n / L, 0 < |k| <= K
+(k = 0 is dropped for a massless field, where w_0 = 0 and the mode weight diverges; it is kept
+for a massive one), Int dk / 2 pi -> (1/L) sum_n.  The sectors P sit on the same lattice, so that
+the detector momentum P - k after an emission stays on it.
+
+3D: in each sector |P| the modes are labelled by (|k|, u = cos theta) relative to P.  The azimuth
+is combined exactly (one collective mode per node, weight 2 pi).  u takes Gauss-Legendre nodes;
+|k| is cut into equal-width *energy shells*: every node of a shell gets the shell's centre
+energy, so that all nodes of one shell are degenerate and merge into one bright mode
+(`star.bright_modes`), and the bath's energy spacing is uniform (recurrence 2 pi / shell width).
+The shell edges are placed at E_e(P) + n x width, which puts the level midway between two shell
+energies (the discrete principal-value sum of the Lamb shift is then second-order accurate).
+Each (shell, u) node carries the exact integral of |g|^2 2 pi k^2 dk over the |k| interval whose
+energies fall in the shell (the energy is convex in |k| at fixed u, so that interval is found by
+bisection on at most two monotone pieces).
+
+Units: hbar = c = 1; momenta, energies in the energy unit, lengths and times in its inverse.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from ...physics.field import Field, field_for, packet_for
+from ...physics.golden_rule import EMISSION, channels_1d, coupling_density, packet_rate
+from ...physics.models import EXCITED, GROUND, COMModel, model_for
+from ...physics.quadrature import gauss_legendre, gauss_legendre_on
+from ..common import (
+    box_return_time,
+    emitted_speed,
+    recurrence_warning,
+    returning_box_length,
+)
+
+#: the bath must outlast t_max by this factor (box return time, 3D shell recurrence)
+RECURRENCE_MARGIN = 1.25
+#: the 1D box also holds this many packet widths beyond the return distance
+BOX_WIDTHS = 8.0
+#: lattice points per packet momentum standard deviation (1D box length from the packet)
+POINTS_PER_SIGMA = 4.0
+#: 1D sectors cover the packet this many standard deviations either side of the mean
+SECTOR_REACH = 6.0
+#: 1D: most sectors before they are thinned to every m-th lattice point
+MAX_SECTORS_1D = 161
+#: 3D: default packet |P| quadrature nodes and Gauss-Legendre nodes in cos theta
+SECTORS_3D = 24
+ANGULAR_NODES = 16
+#: modes (1D) / energy shells (3D) per sector before a resonance window is chosen automatically
+MODE_BUDGET = 6000
+#: warn when the resonance window is narrower than this many golden-rule rates
+WINDOW_LINEWIDTHS = 50.0
+#: a recoil kick or momentum spread needs at least this many lattice spacings
+RESOLUTION_POINTS = 4.0
+#: Gauss-Legendre points per (shell, u) node for the |k| integrals; bisection steps
+SHELL_POINTS = 4
+BISECTION_STEPS = 60
+
+
+@dataclass(frozen=True)
+class Sector:
+    """One total-momentum sector: a level coupled to discrete modes.
+
+    momentum: P (signed in 1D, |P| in 3D); weight: the packet's probability of the sector (the
+    weights of a bath sum to 1); level_energy: E_e(P) - M_g.  Per mode: mode_energies eps (energy),
+    couplings g (energy), quanta (1D: the signed lattice momentum k; 3D: the |g|^2-weighted mean
+    |k| of the node), lattice (1D: n with k = n dk; empty in 3D), cosines (3D: u of the node),
+    quanta_square (3D: |g|^2-weighted mean k^2; 1D: k^2).
+    """
+
+    momentum: float
+    weight: float
+    level_energy: float
+    mode_energies: np.ndarray
+    couplings: np.ndarray
+    quanta: np.ndarray
+    lattice: np.ndarray
+    cosines: np.ndarray
+    quanta_square: np.ndarray
+
+    @property
+    def coupling_sum(self) -> float:
+        """sum_k |g_k|^2 = Int J_P(w) dw of the truncated bath (energy^2): the t^2 coefficient."""
+        return float(np.sum(np.abs(self.couplings) ** 2))
+
+
+@dataclass(frozen=True)
+class Bath:
+    """A truncated bath: its sectors and the discretisation that made them.
+
+    spacing: 1D lattice spacing 2 pi / L (momentum); 3D energy-shell width (energy).
+    recurrence_time: when the discrete bath stops faking a continuum (1D: the emitted wave's
+    return L / (1 + v); 3D: 2 pi / shell width).  window: the resonance window |eps - E_e| <=
+    window, or None for the full band 0 < |k| <= cutoff.  stride: 1D sectors sit on every
+    stride-th lattice point.  notes: warnings about the discretisation, for the run's summary.
+    """
+
+    dimensions: int
+    sectors: tuple[Sector, ...]
+    cutoff: float
+    spacing: float
+    recurrence_time: float
+    window: float | None
+    box_length: float | None = None
+    stride: int = 1
+    angular_nodes: int = 0
+    notes: tuple[str, ...] = ()
+
+    @property
+    def mode_count(self) -> int:
+        """Largest number of modes in one sector."""
+        return max((s.mode_energies.size for s in self.sectors), default=0)
+
+
+# --- shared -----------------------------------------------------------------------------------
+
+
+def _mode_couplings(model: COMModel, field: Field, P, k, volume):
+    """g = sqrt(|g_P(k)|^2 volume) for a 1D emission at signed P into the signed quantum k."""
+    k = np.asarray(k, dtype=float)
+    return np.sqrt(coupling_density(model, field, EMISSION, np.abs(k), abs(P), np.abs(P - k))
+                   * volume)
+
+
+def bath_for(scenario, t_max: float) -> Bath:
+    """The scenario's truncated bath for a run to t_max (defaults overridable in [bath])."""
+    if scenario.dimensions == 1:
+        return box_bath(scenario, t_max)
+    return shell_bath(scenario, t_max)
+
+
+def refined_keys(bath: Bath, factor: float = 1.5) -> dict:
+    """Dotted scenario keys that refine `bath` by `factor`: larger box / finer shells, more
+    nodes and sectors, a higher cutoff and a wider window (for `recoilsim run --check`)."""
+    keys = {"field.cutoff": bath.cutoff * factor}
+    if bath.window is not None:
+        keys["bath.window"] = bath.window * factor
+    if bath.dimensions == 1:
+        keys["bath.box_length"] = bath.box_length * factor
+    else:
+        band = max(s.mode_energies.max() - s.mode_energies.min() for s in bath.sectors
+                   if s.mode_energies.size)
+        keys["bath.radial_nodes"] = math.ceil(factor * band / bath.spacing)
+        keys["bath.angular_nodes"] = math.ceil(factor * bath.angular_nodes)
+        keys["bath.sectors"] = math.ceil(factor * len(bath.sectors))
+    return keys
+
+
+# --- 1D: periodic box -------------------------------------------------------------------------
+
+
+def default_box_length(scenario, model: COMModel, t_max: float) -> float:
+    """L = max(margin (1 + v) t_max + 8 widths, 4 points per sigma_p: 8 pi / sigma_p) (length).
+
+    The emitted wave, running against the detector at relative speed 1 + v, returns after
+    L / (1 + v); the lattice spacing 2 pi / L must resolve the packet's momentum spread sigma_p.
+    """
+    packet = packet_for(scenario)
+    speed = emitted_speed(model, scenario)
+    returning = returning_box_length(t_max, speed, RECURRENCE_MARGIN) + BOX_WIDTHS * packet.width
+    resolving = 2 * np.pi * POINTS_PER_SIGMA / packet.momentum_std
+    return float(max(returning, resolving))
+
+
+def sector_lattice(scenario, spacing: float, limit: int | None) -> tuple[np.ndarray, int]:
+    """Lattice indices j of the 1D sectors P = j dk covering the packet +- SECTOR_REACH sigma_p,
+    thinned to every stride-th point when there are more than `limit`; returns (j, stride)."""
+    packet = packet_for(scenario)
+    lo = math.ceil((packet.momentum[0] - SECTOR_REACH * packet.momentum_std) / spacing)
+    hi = math.floor((packet.momentum[0] + SECTOR_REACH * packet.momentum_std) / spacing)
+    count = hi - lo + 1
+    stride = max(1, math.ceil(count / limit)) if limit else 1
+    centre = round(packet.momentum[0] / spacing)
+    j = np.arange(centre - ((centre - lo) // stride) * stride, hi + 1, stride)
+    return j, stride
+
+
+def box_sector(model: COMModel, field: Field, P: float, spacing: float, weight: float,
+               window: float | None) -> Sector:
+    """The 1D sector at lattice momentum P: modes k = n dk, 0 < |k| <= cutoff (k = 0 kept for a
+    massive field), restricted to |eps - E_e(P)| <= window when a window is given."""
+    level = float(model.energy(EXCITED, abs(P)))
+    if window is None:
+        top = math.floor(field.cutoff / spacing * (1 + 1e-12))
+        n = np.arange(-top, top + 1)
+    else:
+        n = _window_lattice(model, field, P, spacing, window)
+    if field.mass == 0:
+        n = n[n != 0]
+    k = n * spacing
+    energies = model.energy(GROUND, np.abs(P - k)) + field.frequency(k)
+    keep = np.abs(k) <= field.cutoff
+    if window is not None:
+        keep &= np.abs(energies - level) <= window
+    n, k, energies = n[keep], k[keep], energies[keep]
+    couplings = _mode_couplings(model, field, P, k, spacing)
+    return Sector(float(P), float(weight), level, energies, couplings, k, n, np.sign(k), k * k)
+
+
+def _window_lattice(model: COMModel, field: Field, P: float, spacing: float, window: float):
+    """Lattice indices around each on-shell emission of the sector (candidates for the window)."""
+    pieces = []
+    for channel, slope in _on_shell(model, field, P):
+        k = -channel.kick  # the emitted quantum's signed momentum: P - k = P + kick
+        half = 2 * window / slope + 2 * spacing
+        pieces.append(np.arange(math.floor((k - half) / spacing), math.ceil((k + half) / spacing) + 1))
+    return np.unique(np.concatenate(pieces)) if pieces else np.zeros(0, dtype=int)
+
+
+def _on_shell(model: COMModel, field: Field, P: float):
+    """(channel, |d eps / dk|) of each on-shell emission of a 1D detector at P (golden rule)."""
+    out = []
+    for channel in channels_1d(model, field, EMISSION, P):
+        k = -channel.kick
+        q = P - k
+        slope = abs(k / float(field.frequency(k)) - float(model.velocity(GROUND, abs(q))) * np.sign(q))
+        out.append((channel, slope))
+    return out
+
+
+def automatic_window(model: COMModel, field: Field, P: float, spacing: float, budget: int) -> float:
+    """Window (energy) holding about `budget` lattice modes around the on-shell emissions at P:
+    a mode count of sum over channels of 2 window / (slope dk)."""
+    density = sum(2.0 / (slope * spacing) for _, slope in _on_shell(model, field, P))
+    return budget / density if density > 0 else np.inf
+
+
+def box_bath(scenario, t_max: float) -> Bath:
+    """1D periodic-box bath with sectors on the mode lattice (see the module docstring)."""
+    model = model_for(scenario)
+    field = field_for(scenario, model)
+    packet = packet_for(scenario)
+    cfg = scenario.bath
+    length = cfg.box_length or default_box_length(scenario, model, t_max)
+    spacing = 2 * np.pi / length
+    budget = cfg.modes or MODE_BUDGET
+    j, stride = sector_lattice(scenario, spacing, cfg.sectors or MAX_SECTORS_1D)
+    P = j * spacing
+    weights = packet.axis_density(P)
+    weights /= weights.sum()
+    window = cfg.window
+    notes = []
+    full_band = 2 * math.floor(field.cutoff / spacing)
+    if window is None and full_band > budget:
+        window = automatic_window(model, field, scenario.mean_momentum, spacing, budget)
+        notes.append(f"bath: the full band 0 < |k| <= {field.cutoff:.4g} would need {full_band:,} "
+                     f"modes per sector; modes restricted to the resonance window "
+                     f"|eps - E_e| <= {window:.4g} (bath.window); the Lamb shift then depends on "
+                     "the window")
+    sectors = tuple(box_sector(model, field, p, spacing, w, window) for p, w in zip(P, weights))
+    speed = emitted_speed(model, scenario)
+    bath = Bath(1, sectors, field.cutoff, spacing, box_return_time(length, speed), window, length, stride,
+                notes=tuple(notes))
+    return replace(bath, notes=bath.notes + tuple(resolution_notes(scenario, model, bath, t_max)))
+
+
+# --- 3D: energy shells x Gauss-Legendre angles ------------------------------------------------
+
+
+def shell_energy(model: COMModel, field: Field, P, k, u):
+    """eps = E_g(|P - k|) + w_k with |P - k| = sqrt(P^2 + k^2 - 2 P k u) (energy units)."""
+    q = np.sqrt(np.maximum(P * P + k * k - 2 * P * k * u, 0.0))
+    return model.energy(GROUND, q) + field.frequency(k)
+
+
+def _energy_slope(model: COMModel, field: Field, P, k, u):
+    """d eps / dk at fixed u: k / w_k + v_g(q) (k - P u) / q (the sign is what matters)."""
+    q = np.sqrt(np.maximum(P * P + k * k - 2 * P * k * u, 0.0))
+    tiny = 1e-300
+    w = field.frequency(k)
+    field_part = np.where(w > 0, k / np.where(w > 0, w, 1.0), 1.0)
+    safe_q = np.maximum(q, tiny)
+    return field_part + model.velocity(GROUND, safe_q) / safe_q * (k - P * u)
+
+
+def _bisect(func, lo, hi, rising):
+    """Vectorised bisection: x in [lo, hi] with func(x) = 0, func rising (or falling) there."""
+    lo, hi = np.array(lo, dtype=float), np.array(hi, dtype=float)
+    for _ in range(BISECTION_STEPS):
+        mid = 0.5 * (lo + hi)
+        up = (func(mid) > 0) == rising
+        hi = np.where(up, mid, hi)
+        lo = np.where(up, lo, mid)
+    return 0.5 * (lo + hi)
+
+
+def shell_sector(model: COMModel, field: Field, P: float, weight: float, width: float,
+                 angular_nodes: int, window: float | None) -> Sector:
+    """The 3D sector |P| discretised in energy shells of `width` (edges at E_e(P) + n width) and
+    Gauss-Legendre nodes in u = cos theta (see the module docstring)."""
+    level = float(model.energy(EXCITED, P))
+    u, u_weights = gauss_legendre(angular_nodes)
+    K = field.cutoff
+    turn = _bisect(lambda k: _energy_slope(model, field, P, k, u), np.zeros_like(u),
+                   np.full_like(u, K), rising=True)
+    turn = np.where(_energy_slope(model, field, P, np.zeros_like(u), u) >= 0, 0.0, turn)
+    turn = np.where(_energy_slope(model, field, P, np.full_like(u, K), u) <= 0, K, turn)
+    pieces = [(np.zeros_like(u), turn, False), (turn, np.full_like(u, K), True)]
+    nodes = [_piece_nodes(model, field, P, level, u, u_weights, width, window, *piece)
+             for piece in pieces]
+    energies, W0, W1, W2, cos = (np.concatenate(parts) for parts in zip(*nodes))
+    keep = W0 > 0
+    mean_k = W1[keep] / W0[keep]
+    return Sector(float(P), float(weight), level, energies[keep], np.sqrt(W0[keep]), mean_k,
+                  np.zeros(0, dtype=int), cos[keep], W2[keep] / W0[keep])
+
+
+def _piece_nodes(model, field, P, level, u, u_weights, width, window, start, stop, rising):
+    """(energy, Int |g|^2 dV, Int |g|^2 k dV, Int |g|^2 k^2 dV, u) of every (shell, u) node on
+    the monotone pieces k in [start(u), stop(u)] of the energy at the angular nodes u."""
+    e_start = shell_energy(model, field, P, start, u)
+    e_stop = shell_energy(model, field, P, stop, u)
+    e_lo, e_hi = np.minimum(e_start, e_stop), np.maximum(e_start, e_stop)
+    if window is not None:
+        e_lo, e_hi = np.maximum(e_lo, level - window), np.minimum(e_hi, level + window)
+    first = np.floor((e_lo - level) / width)
+    count = np.where(e_hi > e_lo, np.ceil((e_hi - level) / width) - first, 0).astype(int)
+    node = np.repeat(np.arange(u.size), count)
+    if node.size == 0:
+        return (np.zeros(0),) * 5
+    shell = first[node] + (np.arange(node.size) - np.repeat(np.cumsum(count) - count, count))
+    lower = np.maximum(level + shell * width, e_lo[node])
+    upper = np.minimum(level + (shell + 1) * width, e_hi[node])
+    uu = u[node]
+
+    def invert(target):
+        return _bisect(lambda k: shell_energy(model, field, P, k, uu) - target, start[node],
+                       stop[node], rising)
+
+    k_a, k_b = invert(lower), invert(upper)
+    k, w = gauss_legendre_on(SHELL_POINTS, k_a, k_b)
+    q = np.sqrt(np.maximum(P * P + k * k - 2 * P * k * uu[:, None], 0.0))
+    density = (coupling_density(model, field, EMISSION, k, P, q) * 2 * np.pi * k * k
+               * np.abs(w) * u_weights[node][:, None])
+    energies = level + (shell + 0.5) * width
+    return (energies, density.sum(1), (density * k).sum(1), (density * k * k).sum(1), uu)
+
+
+def default_shell_width(t_max: float) -> float:
+    """Energy-shell width whose recurrence 2 pi / width is RECURRENCE_MARGIN x t_max (energy)."""
+    return 2 * np.pi / (RECURRENCE_MARGIN * t_max)
+
+
+def shell_bath(scenario, t_max: float) -> Bath:
+    """3D bath: sectors at the packet's |P| quadrature nodes, energy shells x angular nodes."""
+    model = model_for(scenario)
+    field = field_for(scenario, model)
+    packet = packet_for(scenario)
+    cfg = scenario.bath
+    P, weights = packet.quadrature(cfg.sectors or SECTORS_3D)
+    angular = cfg.angular_nodes or ANGULAR_NODES
+    band = _band(model, field, float(P.max()))
+    width = band / cfg.radial_nodes if cfg.radial_nodes else default_shell_width(t_max)
+    budget = cfg.modes or MODE_BUDGET
+    window = cfg.window
+    notes = []
+    if window is None and band / width > budget:
+        window = 0.5 * budget * width
+        notes.append(f"bath: the full band ({band:.4g} wide) would need {band / width:,.0f} energy "
+                     f"shells per sector; shells restricted to the resonance window "
+                     f"|eps - E_e| <= {window:.4g} (bath.window); the Lamb shift then depends on "
+                     "the window")
+    sectors = tuple(shell_sector(model, field, float(p), float(w), width, angular, window)
+                    for p, w in zip(P, weights))
+    bath = Bath(3, sectors, field.cutoff, width, 2 * np.pi / width, window,
+                angular_nodes=angular, notes=tuple(notes))
+    return replace(bath, notes=bath.notes + tuple(resolution_notes(scenario, model, bath, t_max)))
+
+
+def _band(model: COMModel, field: Field, P: float) -> float:
+    """Energy range of the 3D sector |P|: from its lowest mode to the backward mode at the cutoff."""
+    u = np.linspace(-1, 1, 65)
+    k = np.linspace(0, field.cutoff, 513)[:, None]
+    e = shell_energy(model, field, P, k, u[None, :])
+    return float(e.max() - e.min())
+
+
+# --- checks -----------------------------------------------------------------------------------
+
+
+def resolution_notes(scenario, model: COMModel, bath: Bath, t_max: float) -> list[str]:
+    """Warnings about the discretisation: recurrence before t_max, unresolved recoil or packet,
+    a resonance window narrower than the line."""
+    what = ("the emitted wave returns to the detector (box length L / (1 + v))"
+            if bath.dimensions == 1 else "the energy-shell bath rephases (2 pi / shell width)")
+    key = "bath.box_length" if bath.dimensions == 1 else "bath.radial_nodes"
+    notes = recurrence_warning(t_max, bath.recurrence_time, what, key)
+    k_star = model.rest_emission_momentum()
+    sigma = packet_for(scenario).momentum_std
+    if bath.dimensions == 1:
+        lattice = bath.spacing * bath.stride
+        if k_star < RESOLUTION_POINTS * bath.spacing:
+            notes.append(f"unresolved recoil: the emitted momentum k* = {k_star:.3g} spans fewer "
+                         f"than {RESOLUTION_POINTS:g} lattice spacings ({bath.spacing:.3g}); raise "
+                         "bath.box_length")
+        if sigma < RESOLUTION_POINTS * lattice:
+            notes.append(f"unresolved packet: sigma_p = {sigma:.3g} spans fewer than "
+                         f"{RESOLUTION_POINTS:g} sector spacings ({lattice:.3g}); raise "
+                         "bath.box_length or bath.sectors")
+    elif k_star < RESOLUTION_POINTS * bath.spacing:
+        notes.append(f"unresolved recoil: the emitted momentum k* = {k_star:.3g} spans fewer than "
+                     f"{RESOLUTION_POINTS:g} energy shells ({bath.spacing:.3g}); raise "
+                     "bath.radial_nodes")
+    if bath.window is not None:
+        rate = packet_rate(scenario)
+        if bath.window < WINDOW_LINEWIDTHS * rate:
+            notes.append(f"narrow resonance window: bath.window = {bath.window:.3g} is less than "
+                         f"{WINDOW_LINEWIDTHS:g} golden-rule rates ({rate:.3g}); the line is "
+                         "truncated and the decay distorted; raise bath.window or bath.modes")
+    return notes
+
+
+def lamb_sector(scenario, bath: Bath) -> Sector:
+    """The sector at the packet's mean momentum (nearest lattice point in 1D), built like the
+    bath's own sectors."""
+    model = model_for(scenario)
+    field = field_for(scenario, model)
+    if bath.dimensions == 1:
+        P = round(scenario.mean_momentum / bath.spacing) * bath.spacing
+        return box_sector(model, field, P, bath.spacing, 1.0, bath.window)
+    return shell_sector(model, field, scenario.mean_momentum, 1.0, bath.spacing,
+                        bath.angular_nodes, bath.window)
+
+
+def discreteness_correction(scenario, bath: Bath, sector: Sector) -> float:
+    """Part of the discrete principal-value sum sum_k |g_k|^2 / (E_e - eps_k) due to the level's
+    offset from the bath's energy lattice (energy units).
+
+    Near an on-shell emission the modes form a locally uniform ladder eps_c + m D; its sum
+    sum_m 1/(delta - m D) = (pi / D) cot(pi delta / D) (delta = E_e - eps_c), which vanishes only
+    when the level sits midway between two modes.  The continuum principal value of a smooth
+    density has no such term, so it is pi J cot(pi delta / D) with J = |g_c|^2 / D, summed over
+    the 1D emission channels.  The 3D shells are built with the level midway: zero there.
+    """
+    if bath.dimensions == 3:
+        return 0.0
+    model = model_for(scenario)
+    field = field_for(scenario, model)
+    index = {int(n): i for i, n in enumerate(sector.lattice)}
+    total = 0.0
+    for channel, _ in _on_shell(model, field, sector.momentum):
+        root = round(-channel.kick / bath.spacing)
+        near = [n for n in (root - 1, root, root + 1) if n in index]
+        if not near:
+            continue
+        centre = min(near, key=lambda n: abs(sector.mode_energies[index[n]] - sector.level_energy))
+        if centre - 1 not in index or centre + 1 not in index:
+            continue
+        ladder = 0.5 * (sector.mode_energies[index[centre + 1]] - sector.mode_energies[index[centre - 1]])
+        delta = sector.level_energy - sector.mode_energies[index[centre]]
+        if delta != 0 and ladder != 0:
+            weight = abs(sector.couplings[index[centre]]) ** 2
+            total += np.pi * weight / ladder / np.tan(np.pi * delta / ladder)
+    return float(total)

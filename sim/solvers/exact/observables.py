@@ -1,0 +1,187 @@
+"""Recoil observables of the exact solver's sectors: momentum densities and the reduced COM state.
+
+1D: the sectors and their modes sit on one momentum lattice p = j dk, so the ground-state
+momentum density is a sum of lattice probabilities (`lattice_density`) and the reduced COM state
+(field and level traced out) is held on the lattice (`ReducedState1D`):
+
+    rho = |phi_e><phi_e| + sum_k |phi_k><phi_k|,   phi_e(P) = psi(P) c(P),
+    phi_k(p) = psi(p + k) c_k(p + k)  on the lattice p = P - k,
+
+whose position variance comes from the lattice Fourier transform (i d/dp on the periodic
+lattice, exact for band-limited states) and whose purity is Tr rho^2 = sum_ab |<phi_a|phi_b>|^2
+(the Gram matrix of the components).  3D: the density along the packet axis of the detector
+momentum after emission, sampled over the directions (`axis_density`).
+
+Units: hbar = c = 1; momenta in the energy unit, lengths in its inverse.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy import sparse
+
+from ...physics.field import packet_for
+from ...physics.models import model_for
+from ..common import axis_grid, bin_index, cell_edges, histogram
+from .baths import Bath
+
+#: complex numbers allowed in the 1D reduced-state array (sectors x modes x state times)
+STATE_ELEMENTS = 4e7
+#: position grid: lattice Fourier transform padded to this many points per sector
+POSITION_OVERSAMPLING = 8
+#: largest momentum lattice for the final reduced state as a qutip.Qobj
+FINAL_STATE_LIMIT = 4000
+#: 3D axis density: quantile nodes in cos(angle of P to the axis), azimuth nodes
+AXIS_NODES, AZIMUTH_NODES = 16, 12
+#: 1D density on the lattice up to this many points, else on the perturbative grid
+LATTICE_DENSITY_LIMIT = 6001
+
+
+def lattice_density(scenario, bath: Bath, index: np.ndarray, probability: np.ndarray):
+    """Ground-state momentum density (probability / dk per lattice point) on the lattice, or
+    histogrammed onto the perturbative grid when the occupied lattice is too long."""
+    lo, hi = int(index.min()), int(index.max())
+    if hi - lo + 1 <= LATTICE_DENSITY_LIMIT:
+        grid = np.arange(lo, hi + 1) * bath.spacing
+        density = np.stack([np.bincount(index - lo, weights=col, minlength=hi - lo + 1)
+                            for col in probability.T], axis=1) / bath.spacing
+        return grid, density
+    grid = axis_grid(scenario, packet_for(scenario), model_for(scenario))
+    return grid, histogram(grid, index * bath.spacing, probability)
+
+
+class ReducedState1D:
+    """The reduced COM state of a 1D run on its momentum lattice, at a subset of times.
+
+    Amplitudes a[t, s, n] = sqrt(w_s) c_k(P_s, t) with k = n dk (n offset to the bath's lowest
+    lattice mode) and e[t, s] = sqrt(w_s) c(P_s, t): component n sits at p = P_s - k_n.
+    """
+
+    @staticmethod
+    def lattice_range(bath: Bath) -> tuple[int, int]:
+        """(lowest lattice mode index, number of lattice modes spanned) over all sectors."""
+        lattice = np.concatenate([sec.lattice for sec in bath.sectors])
+        if lattice.size == 0:
+            return 0, 1
+        return int(lattice.min()), int(lattice.max() - lattice.min()) + 1
+
+    @classmethod
+    def fits(cls, bath: Bath) -> bool:
+        """Sectors on every lattice point, and two times of amplitudes within STATE_ELEMENTS."""
+        return bath.stride == 1 and 2 * len(bath.sectors) * cls.lattice_range(bath)[1] <= STATE_ELEMENTS
+
+    def __init__(self, bath: Bath, recoil: np.ndarray):
+        self.first, width = self.lattice_range(bath)
+        sectors = len(bath.sectors)
+        stride = max(1, math.ceil(sectors * width * recoil.size / STATE_ELEMENTS))
+        self.rows = np.arange(0, recoil.size, stride)
+        if self.rows[-1] != recoil.size - 1:
+            self.rows = np.append(self.rows, recoil.size - 1)
+        self.times = recoil[self.rows]
+        self.spacing = bath.spacing
+        self.sector_index = np.array([round(sec.momentum / bath.spacing) for sec in bath.sectors])
+        self.modes = np.zeros((self.rows.size, sectors, width), dtype=complex)
+        self.level = np.zeros((self.rows.size, sectors), dtype=complex)
+
+    def add(self, index: int, sector, level: np.ndarray, modes: np.ndarray) -> None:
+        """Store sector `index`'s level and mode amplitudes at the state times."""
+        root = math.sqrt(sector.weight)
+        self.level[:, index] = root * level
+        self.modes[:, index, sector.lattice - self.first] = root * modes
+
+    def position_variance(self) -> np.ndarray:
+        """Var x of the reduced state (length^2) from the zero-padded lattice Fourier transform
+        phi(x) = sum_s a_s e^{i P_s x} (|phi(x)|^2 is the same for every mode's shift e^{-i k x}),
+        on the ring of length 2 pi / dk centred on the circular mean position."""
+        sectors = self.level.shape[1]
+        points = POSITION_OVERSAMPLING * sectors
+        density = np.abs(np.fft.ifft(self.level, n=points, axis=1)) ** 2
+        for chunk in range(self.modes.shape[0]):
+            density[chunk] += np.sum(np.abs(np.fft.ifft(self.modes[chunk], n=points, axis=0)) ** 2,
+                                     axis=1)
+        ring = 2 * np.pi / self.spacing
+        x = np.arange(points) * ring / points
+        phase = np.angle(density @ np.exp(2j * np.pi * np.arange(points) / points))
+        centre = phase[:, None] / (2 * np.pi) * ring
+        offset = (x[None, :] - centre + 0.5 * ring) % ring - 0.5 * ring
+        total = density.sum(1)
+        mean = (density * offset).sum(1) / total
+        return (density * offset ** 2).sum(1) / total - mean ** 2
+
+    def purity(self) -> np.ndarray:
+        """Tr rho^2 = sum_ab |<phi_a|phi_b>|^2 over the level and mode components (Gram matrix).
+
+        Components n and n + d overlap where P_s - k_n = P_s' - k_(n+d), i.e. s' = s + d.
+        """
+        a, e = self.modes, self.level
+        bra = a.conj()
+        sectors, width = a.shape[1], a.shape[2]
+        total = np.sum(np.abs(e) ** 2, axis=1) ** 2
+        total += np.sum(np.abs(np.einsum("tsn,tsn->tn", bra, a)) ** 2, axis=1)
+        for d in range(1, min(sectors, width)):
+            overlap = np.einsum("tsn,tsn->tn", bra[:, :-d, :-d], a[:, d:, d:])
+            total += 2 * np.sum(np.abs(overlap) ** 2, axis=1)
+        for column in range(width):  # <phi_e|phi_n>: phi_n at P_s - k_n = P_s' for s' = s - n
+            n = column + self.first
+            if abs(n) >= sectors:
+                continue
+            lo, hi = max(0, n), min(sectors, sectors + n)
+            overlap = np.sum(e[:, lo - n:hi - n].conj() * a[:, lo:hi, column], axis=1)
+            total += 2 * np.abs(overlap) ** 2
+        return total
+
+    def final_qobj(self):
+        """rho(p, p') at the last state time as a qutip.Qobj on the lattice p = j dk (lowest j
+        first, see `lattice_momenta`), or None when the lattice exceeds FINAL_STATE_LIMIT."""
+        import qutip
+
+        vectors, momenta = self.component_vectors(-1)
+        if momenta.size > FINAL_STATE_LIMIT:
+            return None
+        return qutip.Qobj(vectors @ vectors.conj().T)
+
+    def component_vectors(self, row: int) -> tuple[np.ndarray, np.ndarray]:
+        """(phi matrix: lattice points x components, the lattice momenta) at state time `row`;
+        column 0 is the level's component, column 1 + c the mode n = first + c."""
+        sectors, width = self.level.shape[1], self.modes.shape[2]
+        lowest = int(self.sector_index[0]) - (self.first + width - 1)
+        points = sectors + width - 1
+        vectors = np.zeros((points, width + 1), dtype=complex)
+        rows = self.sector_index - lowest
+        vectors[rows, 0] = self.level[row]
+        for column in range(width):
+            vectors[rows - (self.first + column), column + 1] = self.modes[row, :, column]
+        return vectors, (np.arange(points) + lowest) * self.spacing
+
+
+def axis_density(grid, packet, sector, node_probability) -> np.ndarray:
+    """Density along the packet axis of the detector momentum q = P - k after emission.
+
+    The sector's direction P^ follows the packet's conditional (von Mises-Fisher) law about the
+    axis, kappa = |P| |p0| / sigma_p^2, sampled at AXIS_NODES stratified quantiles of
+    cos(alpha) = x; the quantum's azimuth about P at AZIMUTH_NODES stratified angles phi:
+    q_z = |P| x - k (u x + sqrt(1-u^2) sqrt(1-x^2) cos phi).  The strata are offset per node by
+    a low-discrepancy (golden-ratio) sequence, so that the discrete angles of different nodes do
+    not pile up in the same cells.  node_probability: (nodes, snapshots) probabilities.
+    """
+    nodes = np.arange(sector.quanta.size)[:, None]
+    quantile = (np.arange(AXIS_NODES)[None, :] + (nodes * 0.6180339887498949) % 1) / AXIS_NODES
+    kappa = sector.momentum * packet.mean_speed / packet.momentum_std ** 2
+    if kappa < 1e-8:
+        x = 2 * quantile - 1
+    else:  # inverse CDF of the density ~ exp(kappa x) on [-1, 1]
+        x = -1 + np.logaddexp(0, np.log(np.maximum(quantile, 1e-300)) + 2 * kappa
+                              + np.log(-np.expm1(-2 * kappa))) / kappa
+    x = np.clip(x, -1, 1)[:, :, None]
+    phi = (np.arange(AZIMUTH_NODES)[None, :] + (nodes * 0.7548776662466927) % 1) * np.pi / AZIMUTH_NODES
+    k, u = sector.quanta[:, None, None], sector.cosines[:, None, None]
+    qz = sector.momentum * x - k * (u * x + np.sqrt(1 - u * u) * np.sqrt(1 - x * x)
+                                    * np.cos(phi)[:, None, :])
+    cells = bin_index(grid, qz.reshape(qz.shape[0], -1))
+    inside = cells >= 0
+    owner = np.broadcast_to(nodes, cells.shape)
+    share = sparse.coo_matrix((np.full(inside.sum(), 1.0 / cells.shape[1]),
+                               (cells[inside], owner[inside])), shape=(grid.size, qz.shape[0]))
+    return (share.tocsr() @ node_probability) / np.diff(cell_edges(grid))[:, None]

@@ -1,0 +1,262 @@
+"""`method = "exact"`: exact single-excitation dynamics in a truncated bath.
+
+Under the rotating-wave approximation the state |e> (x) psi (x) vac stays in the one-excitation
+space and splits into total-momentum sectors P (`baths`): in each a level E_e(P) coupled to
+modes eps_k = E_g(P - k) + w_k with couplings g_P(k) = lambda F(k) V(P, P - k) /
+sqrt((2 pi)^d 2 w_k) per sqrt(d^dk).  Each sector is solved exactly by the secular equation of
+its star Hamiltonian (`star.star_spectrum`): no time step.  With w_P the packet's probability
+of sector P, c(P, t) the level amplitude and c_k(P, t) the mode amplitudes,
+
+    P_e(t) = sum_P w_P |c(P, t)|^2,
+    <p^n>  = sum_P w_P [ |c|^2 P^n + sum_k |c_k|^2 (P - k)^n ]           (1D, detector momentum),
+
+and in 3D the same along the packet axis, with the emission direction's moments relative to P
+projected by the conditional direction moments of the Gaussian packet
+(`Packet.direction_moments`).  In 1D the reduced COM state follows on the momentum lattice
+(`observables.ReducedState1D`).  Recoil observables cost O(modes^2) per sector and time;
+beyond a work budget they are computed on every m-th sample time only (nan in between).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from scipy.ndimage import gaussian_filter1d
+
+from ...errors import ScenarioError
+from ...physics.checks import with_keys
+from ...physics.field import packet_for
+from ...physics.models import model_for
+from ..base import Estimate, Evolution, Solver
+from ..common import axis_grid, masked, sample_times, snapshot_indices
+from .baths import Bath, bath_for, discreteness_correction, lamb_sector, refined_keys
+from .observables import STATE_ELEMENTS, ReducedState1D, axis_density, lattice_density
+from .star import sector_lamb_shift, star_spectrum
+
+#: sum over sectors of (bright modes)^2 x (recoil times) allowed before the recoil times thin out
+RECOIL_WORK = 4e10
+#: 3D axis density: Gaussian smoothing of the sampled histogram, in grid cells
+DENSITY_SMOOTHING = 1.5
+
+
+def unsupported(scenario) -> list[str]:
+    """Scenario keys the single-excitation RWA solver cannot honour (ScenarioError lines)."""
+    problems = []
+    if scenario.field.temperature > 0:
+        problems.append(f"field.temperature = {scenario.field.temperature!r}: method \"exact\" "
+                        "evolves the field vacuum (one excitation); allowed: 0 (use method "
+                        "\"markov\" for a thermal field)")
+    if scenario.packet.internal != "excited":
+        problems.append(f"packet.internal = \"{scenario.packet.internal}\": in the vacuum under the "
+                        "rotating-wave approximation a ground-state detector never changes; "
+                        "allowed: \"excited\"")
+    if not scenario.coupling.rotating_wave:
+        problems.append("coupling.rotating_wave = false: method \"exact\" solves the "
+                        "rotating-wave single-excitation sectors; allowed: true (use method "
+                        "\"fock\" for the counter-rotating terms)")
+    return problems
+
+
+class ExactSolver(Solver):
+    """Exact sector-by-sector dynamics in the scenario's truncated bath (module docstring)."""
+
+    name = "exact"
+
+    def __init__(self, scenario, *, progress: bool = False):
+        super().__init__(scenario, progress=progress)
+        problems = unsupported(scenario)
+        if problems:
+            raise ScenarioError(problems)
+        self._bath: Bath | None = None
+
+    def bath(self) -> Bath:
+        """The truncated bath for this run (built once)."""
+        if self._bath is None:
+            self._bath = bath_for(self.scenario, float(sample_times(self.scenario)[-1]))
+        return self._bath
+
+    def estimate(self) -> Estimate:
+        bath = self.bath()
+        samples = self.scenario.run.samples
+        modes = bath.mode_count
+        state = len(bath.sectors) * (modes + 1) * samples if bath.dimensions == 1 else 0
+        memory = 16.0 * (min(state, STATE_ELEMENTS) + 4 * modes * samples) + 8.0 * 2**18 * 4
+        work = sum(s.mode_energies.size ** 2 for s in bath.sectors) * samples * 4.0
+        keys = ("bath.modes", "bath.window", "bath.box_length" if bath.dimensions == 1
+                else "bath.radial_nodes", "bath.sectors")
+        return Estimate(states=modes + 1, memory_bytes=memory, work=work, keys=keys)
+
+    def refined(self) -> "ExactSolver":
+        """The same solver with the bath refined x1.5 (box, cutoff, nodes, sectors, window)."""
+        return ExactSolver(with_keys(self.scenario, refined_keys(self.bath())),
+                           progress=self.progress)
+
+    def evolve(self, times):
+        s = self.scenario
+        bath = self.bath()
+        snaps = snapshot_indices(len(times))
+        recoil = recoil_indices(len(times), snaps,
+                                [np.unique(sec.mode_energies).size for sec in bath.sectors])
+        residues = []
+        spectra = (_spectrum(sec, residues) for sec in _progress(bath.sectors, self.progress))
+        evolve_sectors = _evolve_1d if bath.dimensions == 1 else _evolve_3d
+        evo = evolve_sectors(s, bath, spectra, times, recoil, snaps)
+        lamb, lowest = lamb_shift(s, bath)
+        evo.lamb_shift = lamb
+        evo.warnings = list(bath.notes) + evo.warnings + self._warnings(bath, lowest)
+        evo.details.update(sectors=len(bath.sectors), modes_per_sector=bath.mode_count,
+                           cutoff=bath.cutoff, spacing=bath.spacing,
+                           recurrence_time=bath.recurrence_time, window=bath.window,
+                           box_length=bath.box_length, sector_stride=bath.stride,
+                           recoil_samples=int(recoil.size), lamb_shift_lowest_modes=lowest,
+                           residue_sum_error=max(residues))
+        return evo
+
+    def _warnings(self, bath: Bath, lowest: float) -> list[str]:
+        """Warnings of the physics the exact bath shows and the golden rule does not."""
+        s = self.scenario
+        out = []
+        if s.dimensions == 1 and s.field.mass == 0:
+            out.append("massless 1D field: the monopole coupling is infrared-sensitive; the soft "
+                       "end of the bath keeps dressing the detector, so the decay departs from the "
+                       "golden rule by a few percent even at weak coupling (physics, not a "
+                       "discretisation error); give field.mass > 0 to compare with the golden rule")
+        what = "cutoff and smearing" + (", and for a massless 1D field on the lowest mode"
+                                        if s.dimensions == 1 and s.field.mass == 0 else "")
+        out.append(f"lamb_shift: discrete principal-value sum of the truncated bath; it depends on "
+                   f"the {what} (the modes |k| = {bath.spacing:.3g} nearest k = 0 contribute "
+                   f"{lowest:.3g})" if s.dimensions == 1 else
+                   f"lamb_shift: discrete principal-value sum of the truncated bath; it depends on "
+                   f"the {what} (cutoff {bath.cutoff:.4g})")
+        return out
+
+
+def _progress(sectors, enabled: bool):
+    """The sectors, under a tqdm progress bar when enabled."""
+    if not enabled:
+        return sectors
+    from tqdm import tqdm
+
+    return tqdm(sectors, desc="exact", unit="sector", leave=False)
+
+
+def _spectrum(sector, residues: list):
+    """The sector's star spectrum; its norm check |sum_j w_j - 1| is appended to `residues`."""
+    spectrum = star_spectrum(sector.level_energy, sector.mode_energies, sector.couplings)
+    residues.append(abs(spectrum.residue_sum - 1))
+    return spectrum
+
+
+def recoil_indices(samples: int, snaps: np.ndarray, bright_counts) -> np.ndarray:
+    """Sample indices where recoil observables are computed: all of them within RECOIL_WORK,
+    else every m-th (first, last and the snapshots always included)."""
+    work = sum(n * n for n in bright_counts) * samples
+    stride = max(1, math.ceil(work / RECOIL_WORK))
+    return np.union1d(np.union1d(np.arange(0, samples, stride), snaps), [samples - 1])
+
+
+def lamb_shift(scenario, bath: Bath) -> tuple[float, float]:
+    """(Lamb shift of the sector at the packet's mean momentum, contribution of the modes
+    nearest k = 0) (energy units): the discrete principal-value sum sum |g|^2 / (E_e - eps),
+    less the level's offset from the mode ladder (`sim.bath.discreteness_correction`)."""
+    sector = lamb_sector(scenario, bath)
+    shift = sector_lamb_shift(sector.level_energy, sector.mode_energies, sector.couplings)
+    shift -= discreteness_correction(scenario, bath, sector)
+    if sector.quanta.size == 0:
+        return float(shift), 0.0
+    soft = np.abs(sector.quanta) <= np.abs(sector.quanta).min() * (1 + 1e-9)
+    lowest = sector_lamb_shift(sector.level_energy, sector.mode_energies[soft], sector.couplings[soft])
+    return float(shift), float(lowest)
+
+
+# --- 1D -----------------------------------------------------------------------------------------
+
+
+def _evolve_1d(scenario, bath: Bath, spectra, times, recoil, snaps) -> Evolution:
+    """1D sectors: population, momentum moments, density, and the reduced COM state."""
+    packet = packet_for(scenario)
+    excited = np.zeros(times.size)
+    moments = np.zeros((3, recoil.size))  # norm, <p>, <p^2>
+    snap_rows = np.searchsorted(recoil, snaps)
+    lattice_p, probability = [], []
+    state = ReducedState1D(bath, recoil) if ReducedState1D.fits(bath) else None
+    for index, (sector, spectrum) in enumerate(zip(bath.sectors, spectra)):
+        level = spectrum.level_amplitude(times)
+        excited += sector.weight * np.abs(level) ** 2
+        modes = spectrum.mode_amplitudes(times[recoil])
+        level_p, modes_p = np.abs(level[recoil]) ** 2, np.abs(modes) ** 2
+        p_after = sector.momentum - sector.quanta
+        moments += sector.weight * np.array([level_p + modes_p.sum(1),
+                                             level_p * sector.momentum + modes_p @ p_after,
+                                             level_p * sector.momentum ** 2 + modes_p @ p_after ** 2])
+        lattice_p.append(round(sector.momentum / bath.spacing) - sector.lattice)
+        probability.append(sector.weight * modes_p[snap_rows].T)
+        if state is not None:
+            state.add(index, sector, level[state.times], modes[state.rows])
+    mean = moments[1] / moments[0]
+    variance = moments[2] / moments[0] - mean ** 2
+    grid, density = lattice_density(scenario, bath, np.concatenate(lattice_p),
+                                     np.concatenate(probability))
+    warnings, x_var, purity, final, details = [], None, None, None, {}
+    if state is None:
+        warnings.append("x_var, purity: not computed (the reduced state needs the sectors on "
+                        f"every lattice point (stride here {bath.stride}) and at most "
+                        f"{STATE_ELEMENTS:.0e} amplitudes per time); lower bath.box_length or "
+                        "bath.window, or raise bath.sectors")
+    else:
+        x_var, purity = state.position_variance(), state.purity()
+        x_var, purity = (masked(state.times, times.size, v) for v in (x_var, purity))
+        final = state.final_qobj()
+        details["final_state_lattice"] = [float(state.component_vectors(-1)[1][0]), bath.spacing]
+    return Evolution(excited=excited, p_mean=masked(recoil, times.size, mean),
+                     p_var=masked(recoil, times.size, variance), momentum_grid=grid,
+                     snapshot_times=times[snaps], momentum_density=density,
+                     initial_density=packet.axis_density(grid), x_var=x_var, purity=purity,
+                     norm=moments[0], final_state=final, warnings=warnings, details=details)
+
+
+# --- 3D -----------------------------------------------------------------------------------------
+
+
+def _evolve_3d(scenario, bath: Bath, spectra, times, recoil, snaps) -> Evolution:
+    """3D sectors: population, momentum moments along the packet axis and the axis density."""
+    packet = packet_for(scenario)
+    grid = axis_grid(scenario, packet, model_for(scenario))
+    excited = np.zeros(times.size)
+    moments = np.zeros((3, recoil.size))
+    density = np.zeros((grid.size, snaps.size))
+    snap_rows = np.searchsorted(recoil, snaps)
+    for sector, spectrum in zip(bath.sectors, spectra):
+        level = spectrum.level_amplitude(times)
+        excited += sector.weight * np.abs(level) ** 2
+        bright = np.abs(spectrum.bright_mode_amplitudes(times[recoil])) ** 2
+        member = spectrum.modes.member_of
+        strength = np.abs(sector.couplings) ** 2
+        r, u = sector.momentum, sector.cosines
+
+        def per_bright(values):
+            return np.bincount(member, weights=strength * values, minlength=bright.shape[1])
+
+        along = per_bright(sector.quanta * u)  # sum |g|^2 k u
+        along2 = per_bright(sector.quanta_square * u * u)
+        across2 = per_bright(0.5 * sector.quanta_square * (1 - u * u))
+        cos1, cos2 = packet.direction_moments(r)
+        level_p = np.abs(level[recoil]) ** 2
+        ground = bright @ spectrum.modes.weights
+        moments += sector.weight * np.array([
+            level_p + ground,
+            cos1 * (level_p * r + r * ground - bright @ along),
+            cos2 * (level_p * r * r + r * r * ground - 2 * r * (bright @ along) + bright @ along2)
+            + (1 - cos2) * (bright @ across2)])
+        node_probability = strength[:, None] * bright[snap_rows][:, member].T
+        density += sector.weight * axis_density(grid, packet, sector, node_probability)
+    mean = moments[1] / moments[0]
+    variance = moments[2] / moments[0] - mean ** 2
+    initial = packet.axis_density(grid)
+    # the sampled angles leave a histogram: smooth it over DENSITY_SMOOTHING grid cells
+    density = gaussian_filter1d(density, DENSITY_SMOOTHING, axis=0, mode="constant")
+    return Evolution(excited=excited, p_mean=masked(recoil, times.size, mean),
+                     p_var=masked(recoil, times.size, variance), momentum_grid=grid,
+                     snapshot_times=times[snaps], momentum_density=density,
+                     initial_density=initial, norm=moments[0])

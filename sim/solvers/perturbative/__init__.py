@@ -1,0 +1,1 @@
+"""`method = "perturbative"`: golden-rule rate equations per packet momentum."""

@@ -1,0 +1,158 @@
+"""`method = "perturbative"`: the golden-rule prediction, a cheap first look.
+
+Each packet momentum P keeps its own two-level rate equation with the golden-rule rates
+Gamma_down(P) (emission, x (1 + n)) and Gamma_up(P) (absorption, x n), the momentum change of
+the rates after a transition neglected:
+
+    P_e(P, t) = P_eq + (P_e(0) - P_eq) exp(-(Gamma_up + Gamma_down) t),  P_eq = Gamma_up / (sum),
+
+so in the vacuum P_e(t) = Int |psi(P)|^2 exp(-Gamma(P) t) d^dP.  The expected numbers of
+transitions N(P, t) = Int_0^t Gamma P_level dt' weight the golden-rule recoil moments
+(`sim.physics.golden_rule.kick_moments`) to give the momentum mean and variance along the packet axis.
+Snapshots of the ground-state momentum density: in 1D each emission channel maps the packet
+density through P -> P + kick(P) exactly; in 3D the packet's axis marginal is convolved with a
+uniform kick of the same variance (exact in the static limit: isotropic emission of |k| = k*
+makes each Cartesian kick component uniform on [-k*, k*]).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy.special import erf
+
+from ...physics.field import field_for, packet_for
+from ...physics.golden_rule import ABSORPTION, EMISSION, channels_1d, kick_moments
+from ...physics.models import EXCITED, level_of, model_for
+from ...physics.packet import gaussian_density
+from ..base import Evolution, Solver
+from ..common import axis_grid, snapshot_indices
+
+#: packet quadrature nodes (1D: signed momenta; 3D: |P|)
+PACKET_NODES_1D = 401
+PACKET_NODES_3D = 64
+
+
+def two_level_populations(up, down, excited_start: bool, t):
+    """P_e(t) and the time integral Int_0^t P_e dt' of the rate equation (arrays over P x t)."""
+    total = (up + down)[:, None]
+    eq = np.divide(up[:, None], total, out=np.zeros_like(total), where=total > 0)
+    start = 1.0 if excited_start else 0.0
+    decay = np.exp(-total * t[None, :])
+    excited = eq + (start - eq) * decay
+    with np.errstate(invalid="ignore", divide="ignore"):
+        relaxed = np.where(total > 0, -np.expm1(-total * t[None, :]) / total, t[None, :])
+    integral = eq * t[None, :] + (start - eq) * relaxed
+    return excited, integral
+
+
+class PerturbativeSolver(Solver):
+    """Golden-rule rate equations per packet momentum (see module docstring)."""
+
+    name = "perturbative"
+
+    def evolve(self, times):
+        """Golden-rule rate equations per packet momentum (module docstring).
+
+        Parameters
+        ----------
+        times : ndarray
+            Sample times (time units).
+
+        Returns
+        -------
+        Evolution
+            P_e(t); <p>, Var p along the packet axis (momentum, momentum^2); ground-state axis
+            momentum densities at the snapshot times (1 / momentum).  No x variance or purity.
+        """
+        s = self.scenario
+        model, field, packet = model_for(s), field_for(s), packet_for(s)
+        excited_start = level_of(s.packet.internal) == EXCITED
+        P, weight = packet.quadrature(PACKET_NODES_1D if s.dimensions == 1 else PACKET_NODES_3D)
+        if s.dimensions == 1:
+            axis_p, cos1, cos2 = P, np.ones_like(P), np.ones_like(P)
+        else:
+            cos1, cos2 = packet.direction_moments(P)
+            axis_p = P
+        down = [kick_moments(model, field, EMISSION, p) for p in P]
+        up = [kick_moments(model, field, ABSORPTION, p) for p in P]
+        rate_down = np.array([m.rate for m in down])
+        rate_up = np.array([m.rate for m in up])
+        excited_P, excited_time = two_level_populations(rate_up, rate_down, excited_start, times)
+        ground_time = times[None, :] - excited_time
+        n_down = rate_down[:, None] * excited_time
+        n_up = rate_up[:, None] * ground_time
+
+        def per_transition(moments, rate):
+            safe = np.where(rate > 0, rate, 1.0)
+            mean = np.array([m.mean for m in moments]) / safe
+            par2 = np.array([m.square for m in moments]) / safe
+            perp2 = np.array([m.transverse for m in moments]) / safe
+            return mean * cos1, 2 * axis_p * mean * cos2, par2 * cos2 + perp2 * (1 - cos2)
+
+        mean0 = s.mean_momentum
+        var0 = packet.momentum_std ** 2
+        shift = np.zeros_like(times)
+        second = np.zeros_like(times)
+        for moments, rate, count in ((down, rate_down, n_down), (up, rate_up, n_up)):
+            m1, cross, m2 = per_transition(moments, rate)
+            shift += weight @ (count * m1[:, None])
+            second += weight @ (count * (cross + m2)[:, None])
+        p_mean = mean0 + shift
+        p_var = var0 + mean0 ** 2 + second - p_mean ** 2
+        excited = weight @ excited_P
+        snaps = snapshot_indices(len(times))
+        grid = axis_grid(s, packet, model)
+        initial = packet.axis_density(grid)
+        if s.dimensions == 1:
+            density = _snapshots_1d(model, field, packet, P, excited_P, excited_start, grid, snaps)
+        else:
+            kick_var = weight @ ((np.array([m.square for m in down]) * cos2
+                                  + np.array([m.transverse for m in down]) * (1 - cos2))
+                                 / np.where(rate_down > 0, rate_down, 1.0))
+            ground = 1 - excited
+            mean_kick = weight @ (np.array([m.mean for m in down]) * cos1
+                                  / np.where(rate_down > 0, rate_down, 1.0))
+            density = np.stack([ground[j] * _gaussian_uniform(grid - mean0 - mean_kick,
+                                                              packet.momentum_std,
+                                                              np.sqrt(3 * kick_var))
+                                for j in snaps], axis=1)
+        return Evolution(excited=excited, p_mean=p_mean, p_var=p_var, momentum_grid=grid,
+                         snapshot_times=times[snaps], momentum_density=density,
+                         initial_density=initial, norm=None,
+                         details={"packet_points": int(len(P))})
+
+
+def _snapshots_1d(model, field, packet, P, excited_P, excited_start, grid, snaps):
+    """Ground density on `grid` at the snapshots (1 / momentum): the packet density
+    |psi(P)|^2 (1 - P_e(P, t)) mapped through each emission channel P -> q = P + kick(P) with
+    the Jacobian 1 / |dq/dP| and the channel's share of the rate (excited start), or left in
+    place (ground start: the part never excited)."""
+    remaining = packet.axis_density(P)[:, None] * (1 - excited_P[:, snaps])
+    if not excited_start:
+        return np.stack([np.interp(grid, P, col, left=0.0, right=0.0) for col in remaining.T],
+                        axis=1)
+    density = np.zeros((len(grid), len(snaps)))
+    channels = [channels_1d(model, field, EMISSION, p) for p in P]
+    for branch in range(max(len(c) for c in channels)):
+        kick = np.array([c[branch].kick if branch < len(c) else np.nan for c in channels])
+        share = np.array([c[branch].rate / sum(x.rate for x in c) if branch < len(c) else 0.0
+                          for c in channels])
+        target = P + kick
+        ok = np.isfinite(target)
+        if ok.sum() < 2:
+            continue
+        jac = np.abs(np.gradient(target[ok], P[ok]))
+        order = np.argsort(target[ok])
+        for j in range(len(snaps)):
+            branch_density = remaining[ok, j] * share[ok] / np.maximum(jac, 1e-300)
+            density[:, j] += np.interp(grid, target[ok][order], branch_density[order],
+                                       left=0.0, right=0.0)
+    return density
+
+
+def _gaussian_uniform(x, std, half_width):
+    """Density of a N(0, std^2) variable plus an independent uniform one on [-h, h]."""
+    if half_width <= 0:
+        return gaussian_density(x, 0.0, std)
+    root2 = np.sqrt(2) * std
+    return (erf((x + half_width) / root2) - erf((x - half_width) / root2)) / (4 * half_width)

@@ -1,0 +1,84 @@
+"""`recoilsim demo`: the bundled default scenario end to end, and the README's figures.
+
+The demo folder holds
+    rates.json, rates.png   golden-rule template functions of the three models
+    exact/                  the exact time evolution (population, recoil, momentum, figures)
+    compare/                perturbative, markov and exact side by side
+    sweep/                  packet-averaged and fitted rates against packet width
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import tempfile
+from pathlib import Path
+
+from ..io.writers import output_folder, write_json
+from ..physics.checks import load_scenario
+from ..result import run
+from .compare import compare_to_folder
+from .rates import rates_report, write_rates_figure
+from .run import write_result
+from .sweep import parse_vary, run_sweep
+
+#: the demo's sweep: packet widths in Compton wavelengths (four points, log-spaced)
+DEMO_SWEEP = "packet.width=2:50:4log"
+#: figures the README shows: (file in figures/, where it comes from in the demo folder)
+README_FIGURES = {
+    "rates.png": "rates.png",
+    "decay.png": "exact/decay.png",
+    "momentum.png": "exact/momentum.png",
+    "compare.png": "compare/compare.png",
+}
+
+
+def default_scenario():
+    """The bundled default scenario (sim/data/default.toml)."""
+    return load_scenario(bundled("default"))
+
+
+def bundled(name: str) -> Path:
+    """Path of a scenario shipped inside the package (sim/data/NAME.toml)."""
+    return Path(__file__).parents[1] / "data" / f"{name}.toml"
+
+
+def build_demo(folder: Path, scenario=None) -> dict:
+    """Write the demo's files into an existing empty `folder`; returns a short report."""
+    scenario = scenario or default_scenario()
+    report = rates_report(scenario, None)
+    write_json(folder / "rates.json", report)
+    write_rates_figure(scenario, folder / "rates.png")
+    exact = run(scenario, method="exact")
+    write_result(exact, folder / "exact")
+    compare_to_folder(scenario, folder / "compare")
+    counts = run_sweep(scenario, [parse_vary(DEMO_SWEEP)], folder / "sweep", workers=2)
+    return {"rate": report["rate"], "exact": exact.summary, "sweep": counts}
+
+
+def run_demo(out: Path, force: bool = False) -> dict:
+    """`recoilsim demo`: build the demo into `out` (atomically as a whole).
+
+    Returns
+    -------
+    dict
+        {"title", "rate" (golden rule), "exact" (the exact run's summary), "sweep" (counts)}.
+    """
+    scenario = default_scenario()
+    with output_folder(out, force=force) as stage:
+        report = build_demo(stage, scenario)
+    return {"title": scenario.title, **report}
+
+
+def make_readme_figures(out: Path) -> list[Path]:
+    """Regenerate the figures the README shows into `out` (by building the demo once)."""
+    out.mkdir(parents=True, exist_ok=True)
+    written = []
+    with tempfile.TemporaryDirectory() as tmp:
+        build_demo(Path(tmp))
+        for name, source in README_FIGURES.items():
+            staged = out / f".{name}.part"
+            shutil.copyfile(Path(tmp) / source, staged)
+            os.replace(staged, out / name)
+            written.append(out / name)
+    return written

@@ -1,0 +1,74 @@
+"""`recoilsim run`: one method into a run folder, optionally with the convergence check."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from ..io.writers import output_folder, refuse_existing, write_json, write_tables
+from ..plotting import result_figures
+from ..result import Result, result_of
+from ..solvers import solver_for
+from ..solvers.base import Estimate, available_memory
+
+
+def write_result(result: Result, out: str | Path, *, force: bool = False, figures: bool = True,
+                 extra_summary: dict | None = None) -> dict:
+    """Write every file of a run into `out`, atomically as a whole.
+
+    Parameters
+    ----------
+    result : Result
+    out : str or Path
+        The run folder (replaced only with `force`).
+    figures : bool
+        Draw the registered figures (`sim.plotting.FIGURES`) too.
+    extra_summary : dict, optional
+        Entries added to summary.json.
+
+    Returns
+    -------
+    dict
+        The summary written to summary.json.
+    """
+    with output_folder(out, force) as stage:
+        summary = write_tables(result, stage, extra_summary)
+        if figures:
+            summary["figures"] = result_figures(result, stage)
+        write_json(stage / "summary.json", summary)
+    return summary
+
+
+def convergence_report(result: Result, refined_result: Result) -> dict:
+    """Largest change of the excited population when the discretisation is refined."""
+    fine = np.interp(result.times, refined_result.times, refined_result.excited)
+    return {"max_change_excited": float(np.max(np.abs(fine - result.excited))),
+            "refined": refined_result.summary.get("stats", {})}
+
+
+def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bool) -> dict:
+    """Run the scenario's method, optionally the convergence check, and write the folder.
+
+    Returns
+    -------
+    dict
+        The summary written (with "convergence" when `check`).
+    """
+    refuse_existing(out, force)  # before the run, not after it
+    solver = solver_for(scenario, progress=progress)
+    result = result_of(solver)
+    extra = {}
+    if check:
+        refined = solver.refined()
+        if refined is None:
+            extra["convergence"] = {"max_change_excited": 0.0,
+                                    "note": f"method {solver.name!r} has no discretisation to refine"}
+        else:
+            extra["convergence"] = convergence_report(result, result_of(refined))
+    return write_result(result, out, force=force, extra_summary=extra)
+
+
+def dry_run(scenario) -> tuple[Estimate, float]:
+    """The run's size estimate and the memory available (bytes), without running it."""
+    return solver_for(scenario).estimate(), available_memory()

@@ -1,0 +1,364 @@
+"""Parameter sweeps: `recoilsim sweep SCENARIO --vary KEY=SPEC [--vary ...] --out DIR`.
+
+KEY is a dotted scenario key (``packet.width``); SPEC is ``a:b:n`` (n values, linear),
+``a:b:nlog`` (n values, geometric; a, b > 0) or ``v1,v2,...`` (numbers, true/false, or strings
+such as model names or unit strings "50 nm").  A range may carry a unit on both ends
+(``"50 nm:400 nm:4log"``).  The product of every --vary is swept.
+
+Layout of DIR (one sweep per folder):
+
+* ``sweep.json``: the sweep's definition (scenario as read, the varied keys and values); a rerun
+  must match it;
+* ``point-0000/`` ...: one run folder per point, written by :func:`sim.workflows.run.write_result` as a
+  whole (staged folder + rename), its summary.json carrying ``"sweep_point"``; a point whose
+  run raised holds only ``failed.json`` (written the same way) with its one-line error;
+* ``sweep.csv``: one row per finished point (a column per varied key named by its dotted key,
+  then rate_golden_rule, rate_fitted, status = "ok" or "failed: <error>"), rebuilt atomically
+  from the point records after each point.  Rates are those of summary.json: natural units, or
+  the output units of a scenario with units (listed in each point's summary.json "units";
+  varying run.t_max across time units, "100 ns,1 us", changes the rate unit per row).
+
+Resuming: a rerun of the same command skips every point with a summary.json and runs the rest
+(failed points are retried), so an interrupted sweep loses no finished point and a killed one
+leaves no half record.  Points run on local worker processes (--workers, default: one per core)
+or, with --scheduler ADDRESS, on an existing Dask cluster whose workers share DIR's file system.
+Exit status: 0 when every point is ok, 1 when some failed or were lost with their worker.
+"""
+
+from __future__ import annotations
+
+import fcntl
+import itertools
+import json
+import math
+import os
+import shutil
+import sys
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from contextlib import contextmanager
+from dataclasses import dataclass
+from multiprocessing import get_context
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from tqdm import tqdm
+
+from ..config.schema import SCHEMA, Scenario
+from ..config.units import QUANTITY_TEXT
+from ..errors import ScenarioError, UsageError
+from ..io.atomic import atomic_write_text, staged_folder
+from ..io.writers import csv_text, json_safe, write_json
+from ..physics.checks import with_keys
+from ..result import run
+from .run import write_result
+
+#: refuse sweeps larger than this many points (a typo in n, most likely)
+MAX_POINTS = 100_000
+#: columns of sweep.csv after the varied keys
+RESULT_COLUMNS = ("rate_golden_rule", "rate_fitted", "status")
+DEFINITION_FILE = "sweep.json"
+TABLE_FILE = "sweep.csv"
+FAILED_FILE = "failed.json"
+LOCK_FILE = ".sweep.lock"
+#: seconds to wait for a Dask scheduler before giving up
+SCHEDULER_TIMEOUT = 20
+#: at most this many invalid points are listed before the sweep is refused
+LISTED_PROBLEMS = 5
+
+
+@dataclass(frozen=True)
+class Axis:
+    """One --vary: a dotted scenario key and the values it takes."""
+
+    key: str
+    values: tuple
+
+
+@dataclass(frozen=True)
+class PointTask:
+    """One point of a sweep: everything a worker needs to run it and write its folder."""
+
+    scenario: Scenario
+    index: int
+    values: dict
+    folder: str
+
+
+# ---------------------------------------------------------------------------------------------
+# --vary KEY=SPEC
+# ---------------------------------------------------------------------------------------------
+
+
+def _scalar(text: str):
+    """A list item: int, float, true/false, or the string itself."""
+    lowered = text.lower()
+    if lowered in ("true", "false"):
+        return lowered == "true"
+    for kind in (int, float):
+        try:
+            return kind(text)
+        except ValueError:
+            pass
+    return text
+
+
+def _range_end(text: str, what: str, spec: str) -> tuple[float, str]:
+    """(number, unit text) of one end of a range."""
+    match = QUANTITY_TEXT.match(text)
+    if not match:
+        raise UsageError(f"--vary {spec!r}: {what} {text!r} is not a number (or number "
+                              "with a unit); expected a:b:n, a:b:nlog or v1,v2,...")
+    return float(match.group(1)), match.group(2)
+
+
+def parse_range(spec: str, body: str) -> tuple:
+    """Values of 'a:b:n' (linear) or 'a:b:nlog' (geometric), numbers or numbers with a unit."""
+    start, stop, count = (part.strip() for part in body.split(":"))
+    log = count.lower().endswith("log")
+    count = count[:-3] if log else count
+    if not count.isdigit() or int(count) < 1:
+        raise UsageError(f"--vary {spec!r}: the count {count!r} must be a whole number "
+                              ">= 1 (a:b:n or a:b:nlog)")
+    a, unit_a = _range_end(start, "start", spec)
+    b, unit_b = _range_end(stop, "stop", spec)
+    if unit_a != unit_b:
+        raise UsageError(f"--vary {spec!r}: both ends need the same unit "
+                              f"({unit_a or 'none'!r} vs {unit_b or 'none'!r})")
+    if log and not (a > 0 and b > 0):
+        raise UsageError(f"--vary {spec!r}: a log range needs a > 0 and b > 0")
+    values = (np.geomspace if log else np.linspace)(a, b, int(count))
+    if unit_a:
+        return tuple(f"{v:.12g} {unit_a}" for v in values)
+    return tuple(float(v) for v in values)
+
+
+def parse_vary(text: str) -> Axis:
+    """KEY=SPEC -> Axis; UsageError (one line) for a bad key or spec."""
+    key, sep, body = text.partition("=")
+    key, body = key.strip(), body.strip()
+    table, _, name = key.partition(".")
+    if not sep or not body:
+        raise UsageError(f"--vary {text!r}: expected KEY=SPEC, e.g. packet.width=5:50:4log")
+    if table not in SCHEMA or name not in SCHEMA[table]:
+        raise UsageError(f"--vary {text!r}: {key!r} is not a scenario key; use table.key, "
+                              "e.g. packet.width (keys: see `recoilsim new`)")
+    if body.count(":") == 2 and "," not in body:
+        return Axis(key, parse_range(text, body))
+    if ":" in body and "," not in body:
+        raise UsageError(f"--vary {text!r}: a range is a:b:n or a:b:nlog")
+    items = [item.strip() for item in body.split(",")]
+    if any(not item for item in items):
+        raise UsageError(f"--vary {text!r}: empty value in the list v1,v2,...")
+    return Axis(key, tuple(_scalar(item) for item in items))
+
+
+def sweep_points(axes: list[Axis]) -> list[dict]:
+    """Every combination of the axes' values (the first axis varies slowest)."""
+    keys = [axis.key for axis in axes]
+    if len(set(keys)) != len(keys):
+        raise UsageError("--vary: each key may be varied once; repeated: "
+                              + ", ".join(sorted({k for k in keys if keys.count(k) > 1})))
+    count = math.prod(len(axis.values) for axis in axes)
+    if count > MAX_POINTS:
+        raise UsageError(f"--vary: {count} points; a sweep has at most {MAX_POINTS}")
+    return [dict(zip(keys, combo)) for combo in itertools.product(*(a.values for a in axes))]
+
+
+def point_label(values: dict) -> str:
+    return ", ".join(f"{k}={v}" for k, v in values.items())
+
+
+def invalid_points(scenario: Scenario, points: list[dict]) -> list[str]:
+    """One problem line per invalid key value (checked before anything runs)."""
+    problems = []
+    for values in points:
+        try:
+            with_keys(scenario, values)
+        except ScenarioError as exc:
+            problems += [f"point {point_label(values)}: {p}" for p in exc.problems]
+    if len(problems) > LISTED_PROBLEMS:
+        problems = problems[:LISTED_PROBLEMS] + [f"... and {len(problems) - LISTED_PROBLEMS} "
+                                                 "more problems"]
+    return problems
+
+
+# ---------------------------------------------------------------------------------------------
+# One point (runs in a worker)
+# ---------------------------------------------------------------------------------------------
+
+
+def folder_name(index: int, count: int) -> str:
+    """point-0000 ... (at least four digits, enough for `count` points)."""
+    return f"point-{index:0{max(4, len(str(count - 1)))}d}"
+
+
+def one_line(exc: BaseException) -> str:
+    """An exception as one line: its type and the first line of its message."""
+    text = str(exc).strip().splitlines()
+    return f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__
+
+
+def run_point(task: PointTask) -> int:
+    """Run one point and write its record (run folder, or failed.json); returns its index.
+
+    Any exception of the run is recorded, not raised: one failed point never stops a sweep.
+    """
+    folder = Path(task.folder)
+    record = {"index": task.index, "values": task.values}
+    try:
+        result = run(with_keys(task.scenario, task.values))
+        write_result(result, folder, force=True, extra_summary={"sweep_point": record})
+    except Exception as exc:  # noqa: BLE001 - recorded in failed.json and sweep.csv
+        failure = {"sweep_point": record, "status": f"failed: {one_line(exc)}", "simulated": True}
+        with staged_folder(folder) as stage:
+            write_json(stage / FAILED_FILE, failure)
+    return task.index
+
+
+def point_row(folder: Path, values: dict) -> dict | None:
+    """The sweep.csv row of a point from its record on disk; None if it has not finished."""
+    summary, failed = folder / "summary.json", folder / FAILED_FILE
+    if summary.is_file():
+        data = json.loads(summary.read_text())
+        rates = {k: (math.nan if data.get(k) is None else data[k]) for k in RESULT_COLUMNS[:2]}
+        return {**values, **rates, "status": "ok"}
+    if failed.is_file():
+        data = json.loads(failed.read_text())
+        return {**values, "rate_golden_rule": math.nan, "rate_fitted": math.nan,
+                "status": data["status"]}
+    return None
+
+
+# ---------------------------------------------------------------------------------------------
+# The sweep folder
+# ---------------------------------------------------------------------------------------------
+
+
+def definition(scenario: Scenario, axes: list[Axis]) -> dict:
+    """What identifies a sweep: the scenario as read and the varied keys with their values."""
+    return json_safe({"simulated": True, "scenario": dict(scenario.source),
+                      "vary": [[a.key, list(a.values)] for a in axes]})
+
+
+@contextmanager
+def sweep_folder(out: Path, ident: dict):
+    """Lock DIR for this sweep, check it holds this sweep (or nothing), clear stale stages."""
+    if out.exists() and not out.is_dir():
+        raise UsageError(f"--out {str(out)!r}: exists and is not a folder")
+    out.mkdir(parents=True, exist_ok=True)
+    with open(out / LOCK_FILE, "w") as lock:
+        try:
+            fcntl.flock(lock, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            raise UsageError(f"--out {str(out)!r}: another sweep is writing to this "
+                                  "folder") from None
+        marker = out / DEFINITION_FILE
+        if marker.is_file():
+            if json.loads(marker.read_text()) != ident:
+                raise UsageError(f"--out {str(out)!r}: holds a different sweep (scenario "
+                                      "or --vary changed); choose another folder")
+        elif any(p.name != LOCK_FILE for p in out.iterdir()):
+            raise UsageError(f"--out {str(out)!r}: folder is not empty and holds no sweep; "
+                                  "choose another folder")
+        else:
+            write_json(marker, ident)
+        for stale in [*out.glob(".*.part"), *out.glob(".*.old")]:
+            _remove(stale)
+        yield out
+
+
+def _remove(path: Path) -> None:
+    """Remove a leftover staging file or folder of a killed run."""
+    if path.is_dir():
+        shutil.rmtree(path, ignore_errors=True)
+    else:
+        path.unlink(missing_ok=True)
+
+
+def write_table(out: Path, keys: list[str], rows: dict[int, dict]) -> None:
+    """Rebuild DIR/sweep.csv from the finished points' rows, atomically."""
+    ordered = [rows[i] for i in sorted(rows)]
+    columns = {name: [row[name] for row in ordered] for name in [*keys, *RESULT_COLUMNS]}
+    atomic_write_text(out / TABLE_FILE, csv_text(columns))
+
+
+# ---------------------------------------------------------------------------------------------
+# Execution
+# ---------------------------------------------------------------------------------------------
+
+
+def local_workers(requested: int | None) -> int:
+    """Worker processes: as requested, else one per usable core."""
+    if requested is None:
+        return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (
+            os.cpu_count() or 1)
+    if requested < 1:
+        raise UsageError(f"--workers {requested}: allowed: >= 1")
+    return requested
+
+
+def finished_indices(tasks: list[PointTask], workers: int, scheduler: str | None):
+    """Run the tasks; yield (index, None) as each finishes, (None, error) for a lost one."""
+    if not tasks:
+        return
+    if scheduler:
+        from distributed import Client
+        from distributed import as_completed as dask_completed
+
+        try:
+            client = Client(scheduler, timeout=SCHEDULER_TIMEOUT)
+        except (OSError, TimeoutError) as exc:
+            raise UsageError(f"--scheduler {scheduler!r}: cannot reach a Dask scheduler there "
+                             f"({one_line(exc)})") from None
+        with client:
+            futures = client.map(run_point, tasks, pure=False)
+            for future in dask_completed(futures):
+                try:
+                    yield future.result(), None
+                except Exception as exc:  # noqa: BLE001 - a lost worker: rerun resumes it
+                    yield None, exc
+    elif workers == 1 or len(tasks) == 1:
+        for task in tasks:
+            yield run_point(task), None
+    else:
+        with ProcessPoolExecutor(min(workers, len(tasks)), mp_context=get_context("spawn")) as pool:
+            futures = [pool.submit(run_point, task) for task in tasks]
+            for future in as_completed(futures):
+                try:
+                    yield future.result(), None
+                except Exception as exc:  # noqa: BLE001 - a dead worker process
+                    yield None, exc
+
+
+def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int | None = None,
+              scheduler: str | None = None, progress: bool = False) -> dict[str, Any]:
+    """Run (or resume) a sweep into `out`; returns counts {"points", "ok", "failed", "lost",
+    "skipped"} (skipped: finished before this call)."""
+    points = sweep_points(axes)
+    problems = invalid_points(scenario, points)
+    if problems:
+        raise ScenarioError(problems)
+    n_workers = 1 if scheduler else local_workers(workers)
+    keys = [axis.key for axis in axes]
+    with sweep_folder(out, definition(scenario, axes)):
+        folders = [out / folder_name(i, len(points)) for i in range(len(points))]
+        rows = {i: row for i, (f, v) in enumerate(zip(folders, points))
+                if (row := point_row(f, v)) is not None}
+        done = {i for i, row in rows.items() if row["status"] == "ok"}
+        tasks = [PointTask(scenario, i, points[i], str(folders[i]))
+                 for i in range(len(points)) if i not in done]
+        write_table(out, keys, rows)
+        lost = []
+        with tqdm(total=len(points), initial=len(done), unit="point", disable=not progress,
+                  file=sys.stderr) as bar:
+            for index, error in finished_indices(tasks, n_workers, scheduler):
+                if error is not None:
+                    lost.append(one_line(error))
+                    continue
+                rows[index] = point_row(folders[index], points[index])
+                write_table(out, keys, rows)
+                bar.update()
+    failed = sum(1 for row in rows.values() if row["status"] != "ok")
+    return {"points": len(points), "ok": len(rows) - failed, "failed": failed,
+            "lost": len(lost), "lost_errors": lost, "skipped": len(done)}
