@@ -4,7 +4,7 @@ The truncated bath of an invented 1D scenario (the bundled default at a weaker c
 five golden-rule lifetimes, with SECTORS packet momenta, so that the single-excitation space has
 more than 3 x 10^4 states) is written out once as one sparse
 Hamiltonian over every |e, P> and |g, P - k; 1_k>, handed to `qutip.sesolve` (tolerances
-below), and compared with the sector-by-sector secular-equation solution (`sim.exact`) on
+below), and compared with the sector-by-sector secular-equation solution (`sim.solvers.exact.star`) on
 the same bath.  Prints the dimension, the decay covered (golden-rule lifetimes, final P_e), both
 wall times, their ratio and the largest difference of the excited population, and whether the
 target (ratio >= 100 at difference <= 1e-6) is met (our time: the median of REPEATS runs,
@@ -34,11 +34,11 @@ import numpy as np  # noqa: E402
 import qutip  # noqa: E402
 import scipy.sparse  # noqa: E402
 
-from sim.solvers.exact.star import star_spectrum  # noqa: E402
-from sim.physics.golden_rule import packet_rate  # noqa: E402
 from sim.physics.checks import load_scenario, with_keys  # noqa: E402
+from sim.physics.golden_rule import packet_rate  # noqa: E402
 from sim.solvers.common import sample_times  # noqa: E402
 from sim.solvers.exact.solver import ExactSolver  # noqa: E402
+from sim.solvers.exact.star import star_spectrum  # noqa: E402
 
 STRENGTH = 0.03
 SECTORS = 17

@@ -1,4 +1,4 @@
-"""Timing and accuracy of the star-sector solver `sim.exact` against bath size.
+"""Timing and accuracy of the star-sector solver `sim.solvers.exact.star` against bath size.
 
 Bath: N modes evenly spread over energies [0, 2] around a level at E0 = 1, with a smooth coupling
 |g(e)|^2 = (rate / 2 pi) exp(-e) * spacing (golden-rule rate ~ `rate` at the level), 400 times up

@@ -49,6 +49,27 @@ def _load(path: str):
 
 
 def cmd_rates(args) -> int:
+    """`recoilsim rates`: print the golden-rule rates of a scenario (or one JSON object).
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        ``scenario`` (TOML file), ``at`` (comma-separated momenta along the packet axis, in
+        output units for a scenario with units, natural units otherwise; or None), ``json``
+        (bool) and ``plot`` (PNG file for `write_rates_figure`, or None).
+
+    Returns
+    -------
+    int
+        The process exit status: 0.
+
+    Raises
+    ------
+    ScenarioError
+        If the scenario does not load or validate.
+    UsageError
+        If ``--at`` is not a list of finite numbers.
+    """
     from ..workflows.rates import rates_report, write_rates_figure
 
     scenario = _load(args.scenario)
@@ -72,6 +93,16 @@ def cmd_rates(args) -> int:
 
 
 def print_run_summary(summary: dict, out: Path) -> None:
+    """Print the report of a finished run: rates, final population, convergence, warnings.
+
+    Parameters
+    ----------
+    summary : dict
+        The summary written to summary.json (`run_to_folder`); its rates are in inverse time,
+        in the units listed under "units" for a scenario with units, natural units otherwise.
+    out : Path
+        The run folder (printed).
+    """
     rate_unit = summary.get("units", {}).get("rate_golden_rule", "")
     rate_unit = f" {rate_unit}" if rate_unit else ""
     print(f"{summary['title']}: method {summary['method']}, simulated")
@@ -87,6 +118,28 @@ def print_run_summary(summary: dict, out: Path) -> None:
 
 
 def cmd_run(args) -> int:
+    """`recoilsim run`: run the scenario's method into ``--out``, or print the dry-run estimate.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        ``scenario`` (TOML file), ``out`` (folder or None), ``check``, ``force`` and
+        ``dry_run`` (bools).
+
+    Returns
+    -------
+    int
+        The process exit status: 0.
+
+    Raises
+    ------
+    ScenarioError
+        If the scenario does not load or validate, or its method cannot honour it.
+    UsageError
+        If ``--out`` is missing without ``--dry-run``.
+    OutputExists
+        If ``--out`` is a file, or a non-empty folder without ``--force``.
+    """
     from ..workflows.run import dry_run, run_to_folder
 
     scenario = _load(args.scenario)
@@ -106,6 +159,23 @@ def cmd_run(args) -> int:
 
 
 def cmd_demo(args) -> int:
+    """`recoilsim demo`: build the demo folder and print where its figures and data are.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        ``out`` (the demo folder) and ``force`` (bool).
+
+    Returns
+    -------
+    int
+        The process exit status: 0.
+
+    Raises
+    ------
+    OutputExists
+        If ``--out`` is a file, or a non-empty folder without ``--force``.
+    """
     from ..workflows.demo import run_demo
 
     out = Path(args.out)
@@ -122,6 +192,25 @@ def cmd_demo(args) -> int:
 
 
 def cmd_compare(args) -> int:
+    """`recoilsim compare`: every method on the scenario, written into ``--out``.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        ``scenario`` (TOML file), ``out`` (folder) and ``force`` (bool).
+
+    Returns
+    -------
+    int
+        The process exit status: 0.
+
+    Raises
+    ------
+    ScenarioError
+        If the scenario does not load or validate, or a method that may not skip it refuses it.
+    OutputExists
+        If ``--out`` is a file, or a non-empty folder without ``--force``.
+    """
     from ..workflows.compare import compare_to_folder
 
     compare_to_folder(_load(args.scenario), Path(args.out), force=args.force)
@@ -130,7 +219,27 @@ def cmd_compare(args) -> int:
 
 
 def cmd_sweep(args) -> int:
-    """`recoilsim sweep`: parse, run or resume, print a one-paragraph report."""
+    """`recoilsim sweep`: parse, run or resume, print a one-paragraph report.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        ``scenario`` (TOML file), ``vary`` (list of KEY=SPEC), ``out`` (folder), ``workers``
+        (int or None) and ``scheduler`` (Dask scheduler address or None).
+
+    Returns
+    -------
+    int
+        The process exit status: 0 when every point is ok, 1 when some failed or were lost.
+
+    Raises
+    ------
+    ScenarioError
+        If the scenario does not load or validate, or a point's values are invalid.
+    UsageError
+        If a ``--vary``, ``--workers`` or ``--scheduler`` is unusable, or ``--out`` cannot hold
+        this sweep.
+    """
     from ..workflows.sweep import TABLE_FILE, parse_vary, run_sweep
 
     scenario = _load(args.scenario)
@@ -147,6 +256,23 @@ def cmd_sweep(args) -> int:
 
 
 def cmd_new(args) -> int:
+    """`recoilsim new`: write the commented template scenario NAME.toml.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        ``name`` (scenario name or .toml path) and ``force`` (bool).
+
+    Returns
+    -------
+    int
+        The process exit status: 0.
+
+    Raises
+    ------
+    OutputExists
+        If the file exists and ``--force`` is not given.
+    """
     from ..workflows.new import write_template
 
     path = write_template(args.name, force=args.force)
@@ -155,6 +281,18 @@ def cmd_new(args) -> int:
 
 
 def cmd_figures(args) -> int:
+    """`recoilsim figures`: regenerate the README's figures and print their paths.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        ``out`` (folder of the figures, created if missing).
+
+    Returns
+    -------
+    int
+        The process exit status: 0.
+    """
     from ..workflows.demo import make_readme_figures
 
     for path in make_readme_figures(Path(args.out)):
@@ -176,7 +314,13 @@ def _command(sub, name: str, func, help_text: str, *, scenario: bool = True):
 
 
 def build_parser() -> argparse.ArgumentParser:
-    """The argument parser of every sub-command."""
+    """The argument parser of every sub-command.
+
+    Returns
+    -------
+    argparse.ArgumentParser
+        One sub-parser per command; the parsed namespace's ``func`` is the `cmd_*` to call.
+    """
     parser = argparse.ArgumentParser(prog="recoilsim", description=(
         "Simulated decay of a two-level detector with a quantum centre of mass."))
     sub = parser.add_subparsers(dest="command", required=True)
@@ -217,7 +361,27 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """The `recoilsim` command: parse `argv` (default sys.argv[1:]), run, return the exit status."""
+    """The `recoilsim` command: parse `argv` (default sys.argv[1:]), run, return the exit status.
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        The arguments without the program name; default ``sys.argv[1:]``.
+
+    Returns
+    -------
+    int
+        The process exit status: the command's (0, or 1 for a sweep with failed or lost
+        points); `EXIT_BAD_INPUT` (2) for a ScenarioError, UsageError, OutputExists or
+        MemoryError, reported in one line per problem on stderr; 130 on Ctrl-C; 1 for an
+        internal error (re-raised instead when RECOILSIM_DEBUG is set); 0 when stdout closes
+        early.
+
+    Raises
+    ------
+    SystemExit
+        From argparse, for ``--help`` (0) or malformed arguments (2).
+    """
     args = build_parser().parse_args(argv)
     os.environ.setdefault("MPLBACKEND", "Agg")  # files, not windows
     try:

@@ -14,7 +14,15 @@ from dataclasses import dataclass
 
 @dataclass(frozen=True)
 class Entry:
-    """One registered name: its implementation ("module:Class") and a one-line description."""
+    """One registered name: its implementation ("module:Class") and a one-line description.
+
+    Parameters
+    ----------
+    target : str
+        Import path "module:Class" of the implementation, loaded when first used.
+    summary : str
+        One-line description for help texts and the template.
+    """
 
     target: str
     summary: str
@@ -44,5 +52,16 @@ MODEL_NAMES: tuple[str, ...] = tuple(MODEL_ENTRIES)
 
 
 def described(entries: dict[str, Entry]) -> str:
-    """'name (summary), name (summary), ...' for help texts and the template."""
+    """'name (summary), name (summary), ...' for help texts and the template.
+
+    Parameters
+    ----------
+    entries : dict of str to Entry
+        Registered names, in the order they are listed.
+
+    Returns
+    -------
+    str
+        The names with their summaries, comma-separated.
+    """
     return ", ".join(f"{name} ({entry.summary})" for name, entry in entries.items())

@@ -27,7 +27,28 @@ MAX_SCENARIO_BYTES = 1_000_000
 
 
 def read_scenario_file(path: str | Path) -> dict:
-    """Parse a TOML scenario file into a dict, with ScenarioError for anything unreadable."""
+    """Parse a TOML scenario file into a dict, with ScenarioError for anything unreadable.
+
+    Parameters
+    ----------
+    path : str or Path
+        The scenario file: UTF-8 TOML text of at most MAX_SCENARIO_BYTES bytes.
+
+    Returns
+    -------
+    dict
+        The file as TOML parses it (tables as dicts); no key is checked yet.
+
+    Raises
+    ------
+    ScenarioError
+        When the file cannot be read, is a folder, is empty, is larger than
+        MAX_SCENARIO_BYTES, is not UTF-8 text or is not valid TOML.
+
+    References
+    ----------
+    TOML v1.0.0 specification; Python documentation, ``tomllib``.
+    """
     path = Path(path)
     try:
         size = path.stat().st_size
@@ -186,6 +207,9 @@ def _build(t: dict[str, dict[str, Any]], title: str, source: Mapping[str, Any], 
 def parse_scenario(scenario: str | Path | Mapping[str, Any]) -> Scenario:
     """Read and validate a scenario from a TOML path or a dict (as TOML would parse it).
 
+    Unit strings are converted with E0 = detector.gap: E / E0, p c / E0, L E0 / (hbar c) and
+    t E0 / hbar (:func:`sim.config.units.resolve_units`).
+
     Parameters
     ----------
     scenario : str, Path or mapping
@@ -200,7 +224,8 @@ def parse_scenario(scenario: str | Path | Mapping[str, Any]) -> Scenario:
     Raises
     ------
     ScenarioError
-        Listing every problem (key, value, what is allowed).
+        Listing every problem (key, value, what is allowed); also when `scenario` is neither a
+        path nor a mapping, or the file cannot be read as TOML.
     """
     if isinstance(scenario, (str, Path)):
         raw = read_scenario_file(scenario)
@@ -230,7 +255,26 @@ def _plain(mapping: Mapping[str, Any]) -> dict:
 
 
 def set_keys(raw: Mapping[str, Any], values: Mapping[str, Any]) -> dict:
-    """A copy of the raw scenario dict with dotted keys (``"packet.width"``) set to new values."""
+    """A copy of the raw scenario dict with dotted keys (``"packet.width"``) set to new values.
+
+    Parameters
+    ----------
+    raw : mapping
+        The scenario as written (as TOML parses it); it is not changed.
+    values : mapping
+        Dotted key "table.key" -> new value, as it would be written in the file (a number in
+        natural units or a unit string).
+
+    Returns
+    -------
+    dict
+        A deep copy of `raw` with the keys set (a missing table is added); not validated.
+
+    Raises
+    ------
+    ScenarioError
+        When a dotted key is not "table.key" with a table and key of the schema.
+    """
     out = _plain(raw)
     for dotted, value in values.items():
         parts = dotted.split(".")

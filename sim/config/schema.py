@@ -25,14 +25,32 @@ from .registry import METHOD_NAMES, MODEL_NAMES
 
 @dataclass(frozen=True)
 class Key:
-    """One scenario key: its type, the allowed range, its default and its physical dimension."""
+    """One scenario key: its type, the allowed range, its default and its physical dimension.
+
+    Parameters
+    ----------
+    kind : str
+        "float", "int", "bool", "str" or "momentum" (a number, or [px, py, pz] in 3D).
+    allowed : str
+        Human-readable allowed range, used in error messages and the template.
+    check : callable
+        ``check(value) -> bool`` on the already typed value: True when it is allowed.
+    default : object, optional
+        Value used when the key is omitted; None: no default (optional keys chosen
+        automatically, or required keys).
+    required : bool
+        Whether the key must be given.
+    dimension : str, optional
+        "energy", "length", "momentum" or "time" for a key that may be written as a unit
+        string (read by :func:`sim.config.units.resolve_units`); None for a pure number.
+    """
 
     kind: str  # "float", "int", "bool", "str", "momentum"
     allowed: str  # human-readable allowed range, used in error messages
     check: Callable[[Any], bool] = lambda v: True
     default: Any = None
     required: bool = False
-    dimension: str | None = None  # physical dimension for unit strings (see sim.config.units)
+    dimension: str | None = None  # energy, length, momentum or time: a unit string is allowed
 
 
 def _positive(v):
@@ -114,7 +132,17 @@ REQUIRED_TABLES = ("detector", "field", "coupling", "packet")
 
 @dataclass(frozen=True)
 class Detector:
-    """Two-level detector: COM model, ground rest mass M_g and rest-frame gap Omega (energy)."""
+    """Two-level detector: COM model, ground rest mass M_g and rest-frame gap Omega (energy).
+
+    Parameters
+    ----------
+    model : str
+        Centre-of-mass model name (:data:`sim.config.registry.MODEL_NAMES`).
+    ground_mass : float
+        M_g, ground-state rest mass (energy units, M c^2 with c = 1).
+    gap : float
+        Omega = M_e - M_g, rest-frame level spacing (energy units).
+    """
 
     model: str
     ground_mass: float
@@ -122,24 +150,64 @@ class Detector:
 
     @property
     def excited_mass(self) -> float:
-        """M_e = M_g + Omega."""
+        """Excited-state rest mass M_e = M_g + Omega.
+
+        Returns
+        -------
+        float
+            M_e (energy units).
+        """
         return self.ground_mass + self.gap
 
 
 @dataclass(frozen=True)
 class FieldConfig:
-    """Scalar field: spatial dimensions, field mass, smearing length, UV cutoff, temperature."""
+    """Scalar field: spatial dimensions, field mass, smearing length, UV cutoff, temperature.
+
+    Parameters
+    ----------
+    dimensions : int
+        Spatial dimensions d, 1 or 3.
+    mass : float
+        Field mass m, w_k = sqrt(k^2 + m^2) (energy units).
+    smearing : float
+        Gaussian smearing length s, form factor F(k) = exp(-k^2 s^2 / 2) (inverse energy
+        units, i.e. 1 / momentum units); 0: point-like.
+    cutoff : float, optional
+        Hard UV cutoff K on |k| (momentum units); None: chosen automatically.
+    temperature : float
+        k_B T of the field (energy units); 0: vacuum.
+    """
 
     dimensions: int
     mass: float = 0.0
     smearing: float = 0.0
-    cutoff: float | None = None  # None: chosen automatically (sim.field.default_cutoff)
+    cutoff: float | None = None  # None: none (golden rule), physics.field.default_cutoff (baths)
     temperature: float = 0.0
 
 
 @dataclass(frozen=True)
 class Coupling:
-    """Monopole coupling lambda; `matching` fixes lambda_2 of the one-particle model."""
+    """Monopole coupling lambda; `matching` fixes lambda_2 of the one-particle model.
+
+    The golden-rule rate is Gamma = 2 pi Int d^dk |g(k)|^2 delta(...) with
+    |g(k)|^2 = lambda^2 V^2 F(k)^2 / ((2 pi)^d 2 w_k), so lambda carries the energy dimension
+    (3 - d) / 2: energy units in 1D, dimensionless in 3D.
+
+    Parameters
+    ----------
+    strength : float
+        lambda (energy^((3 - d)/2) in natural units).
+    matching : str, optional
+        One-particle model only: "nonrelativistic" (lambda_2^2 = 4 M_g M_e lambda^2) or
+        "rest-frame" (lambda_2^2 = 4 M_e E_g* lambda^2, E_g* the ground energy after a decay
+        at rest).
+    rotating_wave : bool
+        Keep only sigma+ a_k and sigma- a_k^dagger (rotating-wave approximation).
+    lifetime : float, optional
+        The rest-frame vacuum golden-rule lifetime 1/Gamma(0) as written in the scenario, when
+        it set `strength` (inverse energy units, i.e. time units).
+    """
 
     strength: float
     matching: str | None = None
@@ -149,7 +217,18 @@ class Coupling:
 
 @dataclass(frozen=True)
 class PacketConfig:
-    """Gaussian COM packet: position std `width` (per axis), mean momentum vector, level."""
+    """Gaussian COM packet: position std `width` (per axis), mean momentum vector, level.
+
+    Parameters
+    ----------
+    width : float
+        Standard deviation of the position density per axis (inverse energy units, i.e. length
+        units); the momentum spread is sigma_p = 1 / (2 width) (momentum units).
+    momentum : tuple of float
+        Mean COM momentum p0, one component in 1D, (px, py, pz) in 3D (momentum units).
+    internal : str
+        Initial internal level, "excited" (decay) or "ground" (thermal excitation).
+    """
 
     width: float
     momentum: tuple[float, ...]
@@ -158,7 +237,22 @@ class PacketConfig:
 
 @dataclass(frozen=True)
 class RunConfig:
-    """Which solver and which times: method, t_max (None: automatic), samples, trajectories."""
+    """Which solver and which times: method, t_max (None: automatic), samples, trajectories.
+
+    Parameters
+    ----------
+    method : str
+        Solver name (:data:`sim.config.registry.METHOD_NAMES`).
+    t_max : float, optional
+        Last sample time (time units, i.e. inverse energy units); None: five golden-rule
+        lifetimes.
+    samples : int
+        Number of sample times from 0 to t_max.
+    trajectories : int
+        Number of quantum trajectories (markov only); 0: the master equation itself.
+    seed : int, optional
+        Random seed of the quantum trajectories.
+    """
 
     method: str = "exact"
     t_max: float | None = None
@@ -169,7 +263,29 @@ class RunConfig:
 
 @dataclass(frozen=True)
 class BathConfig:
-    """Overrides of the truncated bath (None: chosen from the scenario by the solver)."""
+    """Overrides of the truncated bath (None: chosen from the scenario by the solver).
+
+    Parameters
+    ----------
+    box_length : float, optional
+        1D: length L_box of the periodic box (length units, i.e. 1 / momentum units).
+    modes : int, optional
+        Number of field modes of the 1D truncated bath.
+    window : float, optional
+        Width of the band of bath momenta kept (momentum units).
+    radial_nodes : int, optional
+        3D: quadrature nodes in |k|.
+    angular_nodes : int, optional
+        3D: quadrature nodes in cos(theta) about the packet axis.
+    sectors : int, optional
+        Number of packet momentum sectors P solved.
+    fock_modes : int, optional
+        fock method: number of field modes in the Fock space.
+    max_occupation : int, optional
+        fock method: largest occupation of one mode.
+    max_quanta : int, optional
+        fock method: largest total number of quanta.
+    """
 
     box_length: float | None = None
     modes: int | None = None
@@ -184,7 +300,17 @@ class BathConfig:
 
 @dataclass(frozen=True)
 class GridConfig:
-    """Overrides of the master-equation momentum grid (None: automatic)."""
+    """Overrides of the master-equation momentum grid (None: automatic).
+
+    Parameters
+    ----------
+    points : int, optional
+        Points of the COM momentum lattice.
+    span : float, optional
+        Packet momentum widths sigma_p covered each side of the mean (dimensionless).
+    directions : int, optional
+        Emission-direction nodes in cos(theta) (3D; 2 in 1D).
+    """
 
     points: int | None = None
     span: float | None = None
@@ -193,7 +319,28 @@ class GridConfig:
 
 @dataclass(frozen=True)
 class Scenario:
-    """One validated scenario. `source` is the scenario as read (before unit conversion)."""
+    """One validated scenario. `source` is the scenario as read (before unit conversion).
+
+    All numbers are in natural units (hbar = c = 1): energies, masses and momenta in one
+    energy unit, times and lengths in its inverse.
+
+    Parameters
+    ----------
+    title : str
+        The scenario's title.
+    detector : Detector
+    field : FieldConfig
+    coupling : Coupling
+    packet : PacketConfig
+    run : RunConfig
+    bath : BathConfig
+    grid : GridConfig
+    source : mapping
+        The scenario as read, unit strings included (not compared or hashed).
+    units : sim.config.units.UnitSystem or None
+        Natural energy unit and output units when the scenario writes units; None otherwise
+        (not compared or hashed).
+    """
 
     title: str
     detector: Detector
@@ -204,15 +351,28 @@ class Scenario:
     bath: BathConfig = BathConfig()
     grid: GridConfig = GridConfig()
     source: Mapping[str, Any] = field(default_factory=dict, compare=False, hash=False)
-    units: Any = field(default=None, compare=False, hash=False)  # sim.units.UnitSystem or None
+    units: Any = field(default=None, compare=False, hash=False)  # config.units.UnitSystem | None
 
     @property
     def dimensions(self) -> int:
+        """Spatial dimensions d of the field (and of the COM motion).
+
+        Returns
+        -------
+        int
+            1 or 3.
+        """
         return self.field.dimensions
 
     @property
     def packet_axis(self) -> tuple[float, ...]:
-        """Unit vector of the packet axis: along the mean momentum, z (or +x in 1D) if it is 0."""
+        """Unit vector of the packet axis: along the mean momentum, z (or +x in 1D) if it is 0.
+
+        Returns
+        -------
+        tuple of float
+            p0 / |p0| (dimensionless), (1.0,) in 1D or (0, 0, 1) in 3D when p0 = 0.
+        """
         p = self.packet.momentum
         norm = math.sqrt(sum(c * c for c in p))
         if norm == 0:
@@ -221,7 +381,13 @@ class Scenario:
 
     @property
     def mean_momentum(self) -> float:
-        """Mean momentum along the packet axis (signed in 1D, |p0| in 3D)."""
+        """Mean momentum along the packet axis (signed in 1D, |p0| in 3D).
+
+        Returns
+        -------
+        float
+            p0 in 1D, |p0| in 3D (momentum units).
+        """
         p = self.packet.momentum
         return p[0] if len(p) == 1 else math.sqrt(sum(c * c for c in p))
 

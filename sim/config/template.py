@@ -114,7 +114,22 @@ title = {title_toml}
 
 
 def toml_value(value) -> str:
-    """A TOML literal for a str, bool, int, float or list of them."""
+    """A TOML literal for a str, bool, int, float or list of them.
+
+    Parameters
+    ----------
+    value : str, bool, int, float, list or tuple
+        The value to write (lists and tuples become TOML arrays).
+
+    Returns
+    -------
+    str
+        The literal: true/false, a double-quoted string, repr() of a number, or "[a, b, ...]".
+
+    References
+    ----------
+    TOML v1.0.0 specification (basic strings, booleans, integers, floats, arrays).
+    """
     if isinstance(value, bool):
         return "true" if value else "false"
     if isinstance(value, str):
@@ -125,7 +140,22 @@ def toml_value(value) -> str:
 
 
 def key_lines(table: str, key: str) -> list[str]:
-    """The comment and the (possibly commented) assignment of one key."""
+    """The comment and the (possibly commented) assignment of one key.
+
+    Parameters
+    ----------
+    table : str
+        Table name in :data:`sim.config.schema.SCHEMA`, e.g. "packet".
+    key : str
+        Key name in that table, e.g. "width".
+
+    Returns
+    -------
+    list of str
+        Comment lines (meaning, allowed range and default, and the unit strings allowed for a
+        dimensional key), wrapped at COMMENT_WIDTH, then "key = value": uncommented for a
+        required key or one of SET_IN_TEMPLATE, else prefixed with "# ".
+    """
     dotted = f"{table}.{key}"
     spec = SCHEMA[table][key]
     default = "required" if spec.required else (
@@ -143,7 +173,19 @@ def key_lines(table: str, key: str) -> list[str]:
 
 
 def template_text(title: str) -> str:
-    """The whole template scenario."""
+    """The whole template scenario.
+
+    Parameters
+    ----------
+    title : str
+        The scenario's title, written in the header comment and as the ``title`` key.
+
+    Returns
+    -------
+    str
+        TOML text: the header, then every table of the schema with every key explained; it
+        loads as written.
+    """
     parts = [HEADER.format(title=title, title_toml=toml_value(title))]
     for table, keys in SCHEMA.items():
         body = [line for key in keys for line in key_lines(table, key)]

@@ -73,19 +73,64 @@ SUMMARY_KEYS = ("rate_golden_rule", "rate_fitted", "lamb_shift", "t_max")
 
 
 class UnitProblem(ValueError):
-    """A quantity string that cannot be read (the message says why, in a few words)."""
+    """A quantity string that cannot be read (the message says why, in a few words).
+
+    Raised by :func:`parse_quantity` and the readers in :data:`SI_READERS`;
+    :func:`resolve_units` catches it and turns it into one problem line of the scenario.
+
+    Parameters
+    ----------
+    message : str
+        The reason, a few words long (e.g. "unknown unit 'parsec/fortnight'").
+    """
 
 
 @cache
 def registry() -> pint.UnitRegistry:
-    """The one pint registry (built on first use: it takes a moment)."""
+    """The one pint unit registry of the process (built on first use: it takes a moment).
+
+    Returns
+    -------
+    pint.UnitRegistry
+        pint's default registry, cached: every quantity of a run shares it, so that quantities
+        parsed by different calls can be compared and converted.
+
+    References
+    ----------
+    pint documentation, "Tutorial" and "Defining units" (the default definitions file).
+    """
     import pint
 
     return pint.UnitRegistry()
 
 
 def parse_quantity(text: str) -> pint.Quantity:
-    """'<number> <unit>' as a pint Quantity; UnitProblem when it is not one."""
+    """Read a quantity string '<number> <unit>' as a pint Quantity.
+
+    The number is a decimal literal (sign, decimal point and exponent allowed); the unit is any
+    expression pint parses, at most MAX_UNIT_TEXT characters and without chained powers or long
+    integers (which pint could take very long to evaluate).
+
+    Parameters
+    ----------
+    text : str
+        The string as written in the scenario, e.g. "650 nm" or "1.5 eV/c".
+
+    Returns
+    -------
+    pint.Quantity
+        The number in the unit as written (no conversion yet; any dimension).
+
+    Raises
+    ------
+    UnitProblem
+        When `text` is not '<number> <unit>', has no unit, has a unit expression that is too
+        long or too costly, or names a unit pint does not know.
+
+    References
+    ----------
+    pint documentation, "String parsing" (``UnitRegistry.parse_units``).
+    """
     match = QUANTITY_TEXT.match(text)
     if not match:
         raise UnitProblem("expected '<number> <unit>'")
@@ -106,7 +151,36 @@ def _magnitude(q: pint.Quantity, unit: str) -> float:
 
 
 def energy_joule(q: pint.Quantity) -> float:
-    """An energy-like quantity as an energy in J (see the module docstring for the readings)."""
+    """Read an energy-like quantity as an energy in J.
+
+    The readings, by the dimension of `q`:
+
+    * an energy E: E;
+    * a mass m: E = m c^2;
+    * a length, read as a vacuum wavelength lambda > 0: E = h c / lambda;
+    * a frequency f (a unit of 1/time without "radian"): E = h f; an angular frequency omega
+      (a unit containing "radian", e.g. "rad/s"): E = hbar omega;
+    * a temperature T: E = k_B T.
+
+    Parameters
+    ----------
+    q : pint.Quantity
+        An energy, mass, vacuum wavelength, frequency or temperature.
+
+    Returns
+    -------
+    float
+        The energy in J (SI).
+
+    Raises
+    ------
+    UnitProblem
+        When `q` has none of these dimensions, or is a wavelength <= 0.
+
+    References
+    ----------
+    SciPy documentation, ``scipy.constants`` (CODATA recommended values of c, h, hbar, k_B).
+    """
     if q.check("[energy]"):
         return _magnitude(q, "J")
     if q.check("[mass]"):
@@ -125,7 +199,30 @@ def energy_joule(q: pint.Quantity) -> float:
 
 
 def momentum_si(q: pint.Quantity) -> float:
-    """A momentum-like quantity in kg m/s: momentum, energy / c, or hbar times a wavenumber."""
+    """Read a momentum-like quantity as a momentum in kg m/s.
+
+    A momentum p is taken as it is, an energy E as p = E / c, a wavenumber k (1/length, not
+    divided by 2 pi) as p = hbar k.
+
+    Parameters
+    ----------
+    q : pint.Quantity
+        A momentum, an energy or a wavenumber.
+
+    Returns
+    -------
+    float
+        The momentum in kg m/s (SI).
+
+    Raises
+    ------
+    UnitProblem
+        When `q` is none of these.
+
+    References
+    ----------
+    SciPy documentation, ``scipy.constants`` (CODATA recommended values of c and hbar).
+    """
     if q.check("[mass] * [length] / [time]"):
         return _magnitude(q, "kg*m/s")
     if q.check("[energy]"):
@@ -136,7 +233,23 @@ def momentum_si(q: pint.Quantity) -> float:
 
 
 def plain_reader(dimension: str, unit: str, name: str):
-    """A reader of quantities of one pint `dimension` into their SI `unit` (named in errors)."""
+    """Make a reader of quantities of one pint dimension into their SI unit.
+
+    Parameters
+    ----------
+    dimension : str
+        pint dimensionality the quantity must have, e.g. "[length]" or "[time]".
+    unit : str
+        SI unit the value is returned in, e.g. "m" or "s".
+    name : str
+        What the quantity is, for the error message, e.g. "a length".
+
+    Returns
+    -------
+    callable
+        ``read(q) -> float``: the magnitude of `q` in `unit`; it raises :class:`UnitProblem`
+        when `q` does not have `dimension`.
+    """
     def read(q: pint.Quantity) -> float:
         if q.check(dimension):
             return _magnitude(q, unit)
@@ -151,9 +264,29 @@ SI_READERS = {"energy": energy_joule, "momentum": momentum_si,
 
 
 def natural_value(si: float, dimension: str, energy_unit: float) -> float:
-    """An SI value (J, kg m/s, m, s) in natural units with energy unit `energy_unit` (J).
+    """Convert an SI value (J, kg m/s, m, s) to natural units with energy unit E0.
 
-    E / E0;  p c / E0;  L E0 / (hbar c);  t E0 / hbar.
+    E -> E / E0;  p -> p c / E0;  L -> L E0 / (hbar c);  t -> t E0 / hbar.
+
+    Parameters
+    ----------
+    si : float
+        The value in SI: J for an energy, kg m/s for a momentum, m for a length, s for a time.
+    dimension : str
+        "energy", "momentum", "length" or "time".
+    energy_unit : float
+        E0, the natural energy unit, in J.
+
+    Returns
+    -------
+    float
+        The value in natural units (hbar = c = 1): energy units (multiples of E0) for an
+        energy or a momentum, inverse energy units (multiples of hbar / E0 and hbar c / E0)
+        for a time or a length.
+
+    References
+    ----------
+    SciPy documentation, ``scipy.constants`` (CODATA recommended values of c and hbar).
     """
     if dimension == "energy":
         return si / energy_unit
@@ -173,6 +306,23 @@ class UnitSystem:
     energy_joule: E0, the natural energy unit (the scenario's gap) in J.  Output units: times in
     `time_label` (= `time_seconds` s), momenta in `momentum_label` (an energy of
     `momentum_energy_joule` J over c), lengths in `length_label` (= `length_metres` m).
+
+    Parameters
+    ----------
+    energy_joule : float
+        E0, the natural energy unit, in J.
+    time_label : str
+        Name of the output time unit (default "ns").
+    time_seconds : float
+        The output time unit in s (default 1e-9).
+    momentum_label : str
+        Name of the output momentum unit (default "eV/c").
+    momentum_energy_joule : float
+        The energy E_out whose E_out / c is the output momentum unit, in J (default 1 eV).
+    length_label : str
+        Name of the output length unit (default "nm").
+    length_metres : float
+        The output length unit in m (default 1e-9).
     """
 
     energy_joule: float
@@ -184,7 +334,22 @@ class UnitSystem:
     length_metres: float = 1e-9
 
     def factors(self) -> tuple[float, float, float]:
-        """Natural -> output factors of a time, a momentum and a length."""
+        """Factors that turn a natural-unit time, momentum and length into output units.
+
+        time: hbar / (E0 t_out);  momentum: E0 / E_out (momenta in E_out / c);
+        length: hbar c / (E0 L_out), with E0 = `energy_joule` and t_out, E_out, L_out the
+        output units in SI.
+
+        Returns
+        -------
+        (time, momentum, length) : tuple of float
+            Output units per natural unit (dimensionless numbers): a natural-unit value times
+            its factor is the value in the output unit.
+
+        References
+        ----------
+        SciPy documentation, ``scipy.constants`` (CODATA recommended values of c and hbar).
+        """
         time = const.hbar / self.energy_joule / self.time_seconds
         momentum = self.energy_joule / self.momentum_energy_joule
         length = const.hbar * const.c / self.energy_joule / self.length_metres
@@ -192,18 +357,59 @@ class UnitSystem:
 
     @staticmethod
     def powers(column: str) -> tuple[int, int, int]:
-        """(time, momentum, length) powers of an output column; (0, 0, 0) if dimensionless."""
+        """Powers of (time, momentum, length) in the dimension of an output column.
+
+        Parameters
+        ----------
+        column : str
+            Output column name, e.g. "t", "p_var" or a momentum snapshot "t=<time>" (a density
+            in momentum, power (0, -1, 0)).
+
+        Returns
+        -------
+        tuple of int
+            (time, momentum, length) powers, from :data:`COLUMN_POWERS`; (0, 0, 0) for a
+            dimensionless or unknown column.
+        """
         if column.startswith(SNAPSHOT_PREFIX):
             return COLUMN_POWERS["density"]
         return COLUMN_POWERS.get(column, (0, 0, 0))
 
     def to_output(self, column: str, values) -> np.ndarray:
-        """Natural-unit values of `column` in output units (unknown columns: dimensionless)."""
+        """Convert natural-unit values of one output column to output units.
+
+        Each value is multiplied by prod_i factor_i ** power_i over (time, momentum, length),
+        with the factors of :meth:`factors` and the powers of :meth:`powers`.
+
+        Parameters
+        ----------
+        column : str
+            Output column name (unknown columns are dimensionless and left unchanged).
+        values : array_like
+            The values in natural units (hbar = c = 1).
+
+        Returns
+        -------
+        numpy.ndarray
+            The values in output units (:meth:`column_unit`), as floats.
+        """
         scale = math.prod(f ** n for f, n in zip(self.factors(), self.powers(column)))
         return np.asarray(values, dtype=float) * scale
 
     def column_unit(self, column: str) -> str:
-        """Unit string of an output column, e.g. "ns", "1/ns", "eV/c", "(eV/c)^2", "1/(eV/c)"."""
+        """Unit string of an output column, e.g. "ns", "1/ns", "eV/c", "(eV/c)^2", "1/(eV/c)".
+
+        Parameters
+        ----------
+        column : str
+            Output column name.
+
+        Returns
+        -------
+        str
+            The output unit, built from the labels and :meth:`powers`; "1" for a dimensionless
+            column.
+        """
         labels = (self.time_label, self.momentum_label, self.length_label)
         powers = self.powers(column)
         up = [(lab, n) for lab, n in zip(labels, powers) if n > 0]
@@ -242,7 +448,12 @@ def _dimensional_strings(raw: Mapping[str, Any], schema) -> list[tuple[str, str,
 
 
 def _output_units(parsed: dict[tuple[str, str], pint.Quantity], energy_unit: float) -> UnitSystem:
-    """Output units from the units the scenario wrote (see the module docstring)."""
+    """Output units from the units the scenario wrote.
+
+    Times in the unit written for run.t_max, else coupling.lifetime, else ns; momenta in
+    "<E>/c" with <E> the unit of detector.gap when it is an energy (else eV/c); lengths in the
+    unit of packet.width (else nm).
+    """
     options = {}
     for key in (("run", "t_max"), ("coupling", "lifetime")):
         if key in parsed:
@@ -271,6 +482,30 @@ def resolve_units(raw: Mapping[str, Any], schema) -> tuple[Mapping[str, Any], Un
     Returns (numeric raw dict, UnitSystem or None when the scenario writes no units, problems):
     one problem line per unreadable string, naming the key, the value and the allowed units.
     Never raises for user input.
+
+    Each string is read into SI (:data:`SI_READERS`), then into natural units with
+    E0 = detector.gap: E / E0, p c / E0, L E0 / (hbar c), t E0 / hbar (:func:`natural_value`).
+    A scenario that writes any unit must write the gap with a unit too.
+
+    Parameters
+    ----------
+    raw : mapping
+        The scenario as TOML parses it (tables of keys); other values are passed through.
+    schema : mapping
+        Table -> key -> :class:`sim.config.schema.Key`; a key with a ``dimension`` may be a
+        quantity string (or a list of them).
+
+    Returns
+    -------
+    numeric : mapping
+        `raw` itself when it writes no unit string, else a copy with every quantity string
+        replaced by a float in natural units (UNREADABLE_PLACEHOLDER where it could not be
+        read).
+    units : UnitSystem or None
+        The natural energy unit and the output units; None when the scenario writes no unit
+        or has a problem.
+    problems : list of str
+        One line per unreadable string or missing gap unit (empty when all is well).
     """
     if not isinstance(raw, Mapping):
         return raw, None, []

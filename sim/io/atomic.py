@@ -16,7 +16,14 @@ from pathlib import Path
 
 
 def atomic_write_text(path: str | Path, text: str) -> None:
-    """Write `text` to `path` through a temporary file in the same folder and a rename."""
+    """Write `text` to `path` through a temporary file in the same folder and a rename.
+
+    Parameters
+    ----------
+    path : str or Path
+        The file; its folder is created if needed.
+    text : str
+    """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
@@ -32,7 +39,16 @@ def atomic_write_text(path: str | Path, text: str) -> None:
 
 
 def atomic_save_figure(fig, path: str | Path, **kwargs) -> None:
-    """Save a matplotlib figure through a temporary file and a rename."""
+    """Save a matplotlib figure through a temporary file and a rename.
+
+    Parameters
+    ----------
+    fig : matplotlib Figure
+    path : str or Path
+        The file; its suffix chooses the format.
+    **kwargs
+        Passed to `Figure.savefig` (e.g. dpi).
+    """
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=path.suffix, dir=path.parent)
     os.close(fd)
@@ -46,11 +62,21 @@ def atomic_save_figure(fig, path: str | Path, **kwargs) -> None:
 
 @contextmanager
 def staged_folder(out: str | Path):
-    """Yield a temporary sibling folder that replaces `out` as a whole when the block succeeds.
+    """A temporary sibling folder that replaces `out` as a whole when the block succeeds.
 
     An existing `out` is swapped out only after the new one is complete; on any error (Ctrl-C
-    included) the stage is removed and `out` is left as it was.  Whether `out` may be replaced
-    is the caller's decision (`sim.io.writers.output_folder`).
+    included) the stage is removed and `out` is left as it was.  Whether `out` may be replaced is
+    the caller's decision (`sim.io.writers.output_folder`).
+
+    Parameters
+    ----------
+    out : str or Path
+        The folder to create or replace.
+
+    Yields
+    ------
+    Path
+        The stage folder to write into.
     """
     out = Path(out)
     out.parent.mkdir(parents=True, exist_ok=True)

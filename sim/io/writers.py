@@ -27,7 +27,19 @@ from .atomic import atomic_write_text, staged_folder
 
 
 def refuse_existing(out: str | Path, force: bool = False) -> None:
-    """Raise OutputExists if `out` is a file, or a non-empty folder and `force` is not given."""
+    """Refuse an output folder that would overwrite something without `force`.
+
+    Parameters
+    ----------
+    out : str or Path
+    force : bool
+        Allow replacing a non-empty folder.
+
+    Raises
+    ------
+    OutputExists
+        If `out` is a file, or a non-empty folder and `force` is not given.
+    """
     out = Path(out)
     if out.exists() and not out.is_dir():
         raise OutputExists(f"--out {str(out)!r}: exists and is not a folder")
@@ -38,8 +50,24 @@ def refuse_existing(out: str | Path, force: bool = False) -> None:
 
 @contextmanager
 def output_folder(out: str | Path, force: bool = False):
-    """A staged folder (`sim.io.atomic.staged_folder`) that replaces `out` when the block
-    succeeds; OutputExists before anything runs if `out` holds files and `force` is not given."""
+    """A staged folder that replaces `out` when the block succeeds (refused first).
+
+    Parameters
+    ----------
+    out : str or Path
+    force : bool
+        Allow replacing a non-empty folder.
+
+    Yields
+    ------
+    Path
+        The stage folder (`sim.io.atomic.staged_folder`).
+
+    Raises
+    ------
+    OutputExists
+        Before anything runs, if `out` holds files and `force` is not given.
+    """
     refuse_existing(out, force)
     with staged_folder(out) as stage:
         yield stage
@@ -55,7 +83,18 @@ def _cell(value) -> str:
 
 
 def csv_text(columns: dict[str, np.ndarray | list]) -> str:
-    """A CSV table: header row of column names, one row per entry."""
+    """A CSV table: header row of column names, one row per entry.
+
+    Parameters
+    ----------
+    columns : dict
+        Column name -> values (equal lengths); integers are written as integers, nan as "nan",
+        other numbers with 12 significant digits.
+
+    Returns
+    -------
+    str
+    """
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
     names = list(columns)
@@ -66,7 +105,18 @@ def csv_text(columns: dict[str, np.ndarray | list]) -> str:
 
 
 def json_safe(value):
-    """Recursively replace nan/inf by None and numpy scalars/arrays by Python values."""
+    """A value made JSON-safe: nan and inf as None, numpy scalars and arrays as Python values.
+
+    Parameters
+    ----------
+    value : any
+        Nested dicts, lists, tuples, numpy arrays and scalars.
+
+    Returns
+    -------
+    any
+        The same structure in plain Python types.
+    """
     if isinstance(value, dict):
         return {str(k): json_safe(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
@@ -83,12 +133,36 @@ def json_safe(value):
 
 
 def snapshot_column(t: float) -> str:
-    """Column name of a momentum snapshot in momentum.csv."""
+    """Column name of a momentum snapshot in momentum.csv.
+
+    Parameters
+    ----------
+    t : float
+        The snapshot time (output units).
+
+    Returns
+    -------
+    str
+        "t=<time>" with 6 significant digits.
+    """
     return f"t={t:.6g}"
 
 
 def result_tables(result: Result) -> dict[str, dict[str, np.ndarray]]:
-    """The CSV tables of a result, in output units: file stem -> column -> values."""
+    """The CSV tables of a result, in output units.
+
+    Parameters
+    ----------
+    result : Result
+
+    Returns
+    -------
+    dict
+        File stem -> column -> values: population (t, excited), recoil (t, p_mean, p_var, x_var,
+        purity), momentum (p, then one density column per snapshot) and the method's own tables;
+        times, momenta, variances and densities in the output units of a scenario with units
+        (natural units otherwise).
+    """
     units = result.scenario.units
     conv = (lambda column, values: units.to_output(column, values)) if units else (
         lambda column, values: np.asarray(values))
@@ -110,7 +184,19 @@ def result_tables(result: Result) -> dict[str, dict[str, np.ndarray]]:
 
 
 def file_summary(result: Result, extra_summary: dict | None = None) -> dict:
-    """The summary as written to summary.json: in output units when the scenario has units."""
+    """The summary as written to summary.json.
+
+    Parameters
+    ----------
+    result : Result
+    extra_summary : dict, optional
+        Entries added to it (e.g. "convergence", "sweep_point").
+
+    Returns
+    -------
+    dict
+        In natural units, plus the output-unit entries (`unit_entries`) for a scenario with units.
+    """
     summary = dict(result.summary)
     if extra_summary:
         summary.update(extra_summary)
@@ -121,9 +207,21 @@ def file_summary(result: Result, extra_summary: dict | None = None) -> dict:
 
 
 def unit_entries(units: UnitSystem, result: Result) -> dict:
-    """summary.json entries of a run in units: "units" (every column written -> unit),
-    `recoil_velocity_m_s`, the natural energy unit, and the summary rates, Lamb shift and
-    t_max in output units (their units listed in "units" too)."""
+    """summary.json entries of a run in physical units.
+
+    Parameters
+    ----------
+    units : UnitSystem
+        The scenario's output units.
+    result : Result
+
+    Returns
+    -------
+    dict
+        "units" (every column written -> its unit), recoil_velocity_m_s (m/s), the natural energy
+        unit (eV), and rate_golden_rule, rate_fitted, lamb_shift (inverse output time unit) and
+        t_max (output time unit).
+    """
     columns = {c for table in result_tables(result).values() for c in table}
     names = {c: units.column_unit(c) for c in sorted(columns)}
     entries: dict[str, Any] = {}
@@ -140,8 +238,20 @@ def unit_entries(units: UnitSystem, result: Result) -> dict:
 
 
 def write_tables(result: Result, folder: str | Path, extra_summary: dict | None = None) -> dict:
-    """Write every CSV table of a run into `folder`; returns the summary to be written with it
-    (`file_summary`)."""
+    """Write every CSV table of a run into `folder`.
+
+    Parameters
+    ----------
+    result : Result
+    folder : str or Path
+    extra_summary : dict, optional
+        Entries for the summary (`file_summary`).
+
+    Returns
+    -------
+    dict
+        The summary to be written with the tables (summary.json is the caller's last file).
+    """
     folder = Path(folder)
     for name, columns in result_tables(result).items():
         atomic_write_text(folder / f"{name}.csv", csv_text(columns))
@@ -149,5 +259,11 @@ def write_tables(result: Result, folder: str | Path, extra_summary: dict | None 
 
 
 def write_json(path: str | Path, data) -> None:
-    """Write `data` as indented JSON (nan and inf as null), atomically."""
+    """Write `data` as indented JSON (nan and inf as null), atomically.
+
+    Parameters
+    ----------
+    path : str or Path
+    data : dict or list
+    """
     atomic_write_text(path, json.dumps(json_safe(data), indent=2) + "\n")

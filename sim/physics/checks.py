@@ -37,7 +37,9 @@ def load_scenario(scenario: str | Path | Mapping[str, Any] | Scenario) -> Scenar
     Raises
     ------
     ScenarioError
-        Listing every problem (key, value, what is allowed).
+        Listing every problem (key, value, what is allowed): configuration problems, then the
+        physics problems of :func:`physics_problems`, or a lifetime given for a detector that
+        cannot emit.
     """
     if isinstance(scenario, Scenario):
         return scenario
@@ -63,6 +65,12 @@ def with_keys(scenario: Scenario, values: Mapping[str, Any]) -> Scenario:
     Returns
     -------
     Scenario
+        The changed scenario, validated and completed as by :func:`load_scenario`.
+
+    Raises
+    ------
+    ScenarioError
+        When a dotted key is not a scenario key, or the changed scenario is not valid.
     """
     return load_scenario(set_keys(scenario.source, values))
 
@@ -77,11 +85,13 @@ def physics_problems(s: Scenario) -> list[str]:
     Parameters
     ----------
     s : Scenario
+        A scenario that passed the configuration checks, with its coupling strength set.
 
     Returns
     -------
     list of str
-        One line per problem, naming the key, its value and the allowed range.
+        One line per problem, naming the key, its value and the allowed range; k0 and K in
+        momentum units, t_max Gamma dimensionless (Gamma the packet-averaged golden-rule rate).
     """
     problems = []
     k0 = rest_emitted_momentum(s)
@@ -100,7 +110,9 @@ def physics_problems(s: Scenario) -> list[str]:
 
 
 def strength_from_lifetime(s: Scenario) -> Scenario:
-    """Set lambda so that the rest-frame vacuum golden-rule lifetime 1/Gamma(0) is coupling.lifetime.
+    """Set lambda so that the rest-frame vacuum golden-rule lifetime 1/Gamma(0) = tau.
+
+    tau is `coupling.lifetime`.
 
     Gamma is proportional to lambda^2 for every model (one-particle through its matching), so
     lambda = sqrt(1 / (tau Gamma_1(0))) with Gamma_1 the rate at lambda = 1.  It is the vacuum
@@ -115,7 +127,19 @@ def strength_from_lifetime(s: Scenario) -> Scenario:
     Returns
     -------
     Scenario
-        The same scenario with `coupling.strength` = lambda (natural units).
+        The same scenario with `coupling.strength` = lambda (natural units,
+        energy^((3 - d)/2): energy units in 1D, dimensionless in 3D).
+
+    Raises
+    ------
+    ScenarioError
+        When the detector at rest cannot emit in the scenario's field (Gamma_1(0) = 0, e.g. a
+        field mass above what the gap can supply), so no strength gives the lifetime.
+
+    References
+    ----------
+    Fermi's golden rule (standard first-order time-dependent perturbation theory), e.g.
+    J. J. Sakurai and J. Napolitano, Modern Quantum Mechanics, 2nd ed. (Addison-Wesley, 2011).
     """
     unit = replace(s, coupling=replace(s.coupling, strength=1.0),
                    packet=replace(s.packet, internal="excited"),

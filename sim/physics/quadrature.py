@@ -19,11 +19,14 @@ def gauss_legendre(nodes: int) -> tuple[np.ndarray, np.ndarray]:
     Returns
     -------
     (x, w) : tuple of ndarray
-        Sum_i w_i f(x_i) ~ Int_{-1}^{1} f(x) dx.
+        Sum_i w_i f(x_i) ~ Int_{-1}^{1} f(x) dx, with x_i the roots of the Legendre
+        polynomial P_n and w_i = 2 / ((1 - x_i^2) P_n'(x_i)^2) (both dimensionless).
 
     References
     ----------
-    Abramowitz & Stegun, Handbook of Mathematical Functions, 25.4.29 (common practice).
+    M. Abramowitz and I. A. Stegun, Handbook of Mathematical Functions (1964), ch. 25,
+    eq. 25.4.29 (Gauss-Legendre integration); NumPy documentation,
+    ``numpy.polynomial.legendre.leggauss``.
     """
     x, w = np.polynomial.legendre.leggauss(nodes)
     x.flags.writeable = False
@@ -34,16 +37,25 @@ def gauss_legendre(nodes: int) -> tuple[np.ndarray, np.ndarray]:
 def gauss_legendre_on(nodes: int, lo, hi) -> tuple[np.ndarray, np.ndarray]:
     """Gauss-Legendre nodes and weights mapped to [lo, hi] (lo, hi may be arrays: a rule each).
 
+    points = (hi - lo)/2 x_i + (hi + lo)/2, weights = (hi - lo)/2 w_i, with (x_i, w_i) the
+    rule on [-1, 1].
+
     Parameters
     ----------
     nodes : int
+        Number of nodes n of each rule.
     lo, hi : float or ndarray
-        Interval ends; with arrays of shape S the result has shape S + (nodes,).
+        Interval ends; with arrays of shape S the result has shape S + (nodes,).  Any unit.
 
     Returns
     -------
     (points, weights) : tuple of ndarray
-        Sum weights f(points) ~ Int_lo^hi f(x) dx.
+        Sum weights f(points) ~ Int_lo^hi f(x) dx; both in the unit of `lo` and `hi`.
+
+    References
+    ----------
+    M. Abramowitz and I. A. Stegun, Handbook of Mathematical Functions (1964), ch. 25,
+    eq. 25.4.30 (Gauss-Legendre integration over [a, b]).
     """
     x, w = gauss_legendre(nodes)
     lo, hi = np.asarray(lo, dtype=float)[..., None], np.asarray(hi, dtype=float)[..., None]

@@ -52,6 +52,12 @@ DRAWERS.update(decay=draw_decay, momentum=draw_momentum, variance=draw_variance)
 def result_figures(result, folder: str | Path) -> list[str]:
     """Draw every registered figure the result has data for into `folder` as NAME.png.
 
+    Parameters
+    ----------
+    result : Result
+    folder : str or Path
+        An existing folder (a run folder's stage).
+
     Returns
     -------
     list of str

@@ -11,8 +11,24 @@ REFERENCE = "exact"
 
 
 def compare_figure(scenario, times, curves: dict, reference: str = REFERENCE):
-    """All excited populations (log axis) and, below, each one minus the reference method's;
-    returns the figure.  `curves`: method -> P_e on `times` (time units)."""
+    """Every method's excited population and, below, its difference from the reference.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        For the title and the output units.
+    times : ndarray
+        Common sample times (time units, natural).
+    curves : dict
+        Method -> P_e on `times` (dimensionless).
+    reference : str
+        The method the others are measured against (no lower panel without it).
+
+    Returns
+    -------
+    matplotlib Figure
+        Top: P_e(t) on a log axis; bottom: P_e - P_e(reference); stamped simulated.
+    """
     plt = pyplot()
     t = in_output_units(scenario, "t", times)
     fig, (top, bottom) = plt.subplots(2, 1, figsize=(7, 6.5), sharex=True,

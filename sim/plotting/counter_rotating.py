@@ -8,11 +8,20 @@ from .style import METHOD_COLOURS, output_times, pyplot, stamp, time_label
 
 
 def counter_rotating_figure(result):
-    """Decay (or vacuum-excitation) curve with all terms against the RWA on the same modes.
+    """A fock run with all terms against the rotating-wave approximation on the same modes.
 
-    Top: P_e(t) of the fock run, of the RWA star (`sim.solvers.exact.star`) and of second-order perturbation
-    theory (`second_order_transition`); bottom: the counter-rotating correction P_e - P_e^RWA.
-    Needs a fock result with rotating_wave = false (its table "counter_rotating").
+    Top: P_e(t) of the fock run, of the RWA star (`sim.solvers.exact.star`) and of second-order
+    perturbation theory; bottom: the counter-rotating correction P_e - P_e^RWA.
+
+    Parameters
+    ----------
+    result : Result
+        A fock result with rotating_wave = false (its table "counter_rotating").
+
+    Returns
+    -------
+    matplotlib Figure
+        Stamped simulated.
     """
     plt = pyplot()
     table = result.tables["counter_rotating"]

@@ -13,8 +13,20 @@ from .style import MODEL_COLOURS, pyplot, stamp
 
 
 def rates_figure(scenario):
-    """Template functions of every model with the packet shaded, and packet-averaged rates
-    against packet width from 0.1 to 100 Compton wavelengths 1/M_g; returns the figure."""
+    """Golden-rule rates of every model: template functions and packet averages.
+
+    Left: Gamma(p) of each model against p / (M_g c) with the packet's momentum density shaded;
+    right: the packet-averaged rate against packet width from 0.1 to 100 Compton wavelengths 1/M_g.
+
+    Parameters
+    ----------
+    scenario : Scenario
+
+    Returns
+    -------
+    matplotlib Figure
+        Rates in inverse time units (natural); stamped simulated.
+    """
     plt = pyplot()
     mass = scenario.detector.ground_mass
     packet = packet_for(scenario)

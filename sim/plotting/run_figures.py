@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..physics.models import EXCITED, level_of
 from .style import (
     METHOD_COLOURS,
     in_output_units,
@@ -20,14 +21,25 @@ from .style import (
 
 
 def draw_decay(result, ax=None):
-    """Excited population P_e(t) on a log axis with the golden-rule exponential exp(-Gamma t)."""
+    """Excited population P_e(t) on a log axis with the golden-rule exponential exp(-Gamma t).
+
+    Parameters
+    ----------
+    result : Result
+    ax : matplotlib Axes, optional
+        Axes to draw into; a new stamped figure when None.
+
+    Returns
+    -------
+    matplotlib Axes
+    """
     ax = new_axes(ax)
     scenario = result.scenario
     t = output_times(result)
     ax.semilogy(t, np.clip(result.excited, 1e-300, None), color=METHOD_COLOURS.get(result.method),
                 label=f"{result.method} (simulated)")
     rate = result.summary.get("rate_golden_rule")  # natural units in memory
-    if rate and scenario.packet.internal == "excited":
+    if rate and level_of(scenario.packet.internal) == EXCITED:
         shown = f"{float(in_output_units(scenario, 'rate_golden_rule', rate)):.4g}"
         if scenario.units is not None:
             shown += f" {scenario.units.column_unit('rate_golden_rule')}"
@@ -44,7 +56,18 @@ def draw_decay(result, ax=None):
 
 
 def draw_momentum(result, ax=None):
-    """Packet momentum density at t = 0 and the ground-state density at the last snapshot."""
+    """Packet axis-momentum density at t = 0 and the ground-state density at the last snapshot.
+
+    Parameters
+    ----------
+    result : Result
+    ax : matplotlib Axes, optional
+        Axes to draw into; a new stamped figure when None.
+
+    Returns
+    -------
+    matplotlib Axes
+    """
     ax = new_axes(ax)
     scenario = result.scenario
     p = in_output_units(scenario, "p", result.momentum_grid)
@@ -62,7 +85,18 @@ def draw_momentum(result, ax=None):
 
 
 def draw_variance(result, ax=None):
-    """Momentum variance (and position variance where computed) against time."""
+    """Momentum variance (and position variance where computed) against time.
+
+    Parameters
+    ----------
+    result : Result
+    ax : matplotlib Axes, optional
+        Axes to draw into; a new stamped figure when None.
+
+    Returns
+    -------
+    matplotlib Axes
+    """
     ax = new_axes(ax)
     scenario = result.scenario
     t = output_times(result)

@@ -25,25 +25,52 @@ DPI = 130
 
 
 def pyplot():
-    """matplotlib.pyplot, imported on first use."""
+    """matplotlib.pyplot, imported on first use.
+
+    Returns
+    -------
+    module
+    """
     import matplotlib.pyplot as plt
 
     return plt
 
 
 def stamp(fig) -> None:
-    """Mark a figure as simulated."""
+    """Mark a figure as simulated (top-right corner text).
+
+    Parameters
+    ----------
+    fig : matplotlib Figure
+    """
     fig.text(0.995, 0.995, STAMP, ha="right", va="top", fontsize=8, color="0.4", style="italic")
 
 
 def save(fig, path: str | Path) -> None:
-    """Save a figure atomically at DPI and close it."""
+    """Save a figure atomically at DPI and close it.
+
+    Parameters
+    ----------
+    fig : matplotlib Figure
+    path : str or Path
+    """
     atomic_save_figure(fig, path, dpi=DPI)
     pyplot().close(fig)
 
 
 def new_axes(ax=None, figsize=(6, 4)):
-    """`ax`, or the axes of a new stamped figure when None."""
+    """`ax`, or the axes of a new stamped figure when None.
+
+    Parameters
+    ----------
+    ax : matplotlib Axes, optional
+    figsize : (float, float)
+        Inches, for a new figure.
+
+    Returns
+    -------
+    matplotlib Axes
+    """
     if ax is None:
         fig, ax = pyplot().subplots(figsize=figsize, constrained_layout=True)
         stamp(fig)
@@ -51,14 +78,39 @@ def new_axes(ax=None, figsize=(6, 4)):
 
 
 def in_output_units(scenario, column: str, values):
-    """Natural-unit values of an output column in the scenario's output units (as they are
-    without units)."""
+    """Natural-unit values of an output column in the scenario's output units.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    column : str
+        An output column name (e.g. "t", "p", "p_var", "rate_golden_rule").
+    values : float or ndarray
+        In natural units.
+
+    Returns
+    -------
+    ndarray
+        In output units (unchanged for a scenario without units).
+    """
     units = scenario.units
     return units.to_output(column, values) if units else np.asarray(values)
 
 
 def unit_suffix(scenario, column: str, natural: str = "") -> str:
-    """' [unit]' of an output column ('' or ' [natural]' without units)."""
+    """' [unit]' of an output column for axis labels.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    column : str
+    natural : str
+        What to show for a scenario without units ('' for nothing).
+
+    Returns
+    -------
+    str
+    """
     units = scenario.units
     if units:
         return f" [{units.column_unit(column)}]"
@@ -66,10 +118,28 @@ def unit_suffix(scenario, column: str, natural: str = "") -> str:
 
 
 def time_label(scenario) -> str:
-    """Axis label of times."""
+    """Axis label of times, with their unit.
+
+    Parameters
+    ----------
+    scenario : Scenario
+
+    Returns
+    -------
+    str
+    """
     return "t" + unit_suffix(scenario, "t", "1/energy unit")
 
 
 def output_times(result):
-    """The run's sample times in output units."""
+    """The run's sample times in output units.
+
+    Parameters
+    ----------
+    result : Result
+
+    Returns
+    -------
+    ndarray
+    """
     return in_output_units(result.scenario, "t", result.times)

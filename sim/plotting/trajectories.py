@@ -14,10 +14,21 @@ HISTOGRAM_BINS = 30
 
 
 def trajectories_figure(result):
-    """trajectories.png: a few trajectories' momentum against time, and the first-emission
-    histogram with the golden-rule exponential N Gamma exp(-Gamma t) dt expected per bin.
+    """Quantum trajectories of a markov run and their first-emission times.
 
-    Needs a markov result with quantum trajectories (its table "emissions").
+    Left: a few trajectories' packet-centre momentum plus their emission kicks against time; right:
+    the histogram of first-emission times with the golden-rule expectation
+    N [exp(-Gamma t_a) - exp(-Gamma t_b)] per bin [t_a, t_b].
+
+    Parameters
+    ----------
+    result : Result
+        A markov result with quantum trajectories (its table "emissions").
+
+    Returns
+    -------
+    matplotlib Figure
+        Stamped simulated.
     """
     plt = pyplot()
     table = result.tables["emissions"]

@@ -44,7 +44,18 @@ def run(scenario, method: str | None = None, **options) -> Result:
 
 
 def result_of(solver) -> Result:
-    """Run a solver (`Solver.run`) and assemble its Result."""
+    """Run a solver and assemble its Result.
+
+    Parameters
+    ----------
+    solver : Solver
+        A solver for a loaded scenario (`sim.solvers.solver_for`).
+
+    Returns
+    -------
+    Result
+        `assemble(solver.name, solver.scenario, solver.run())`.
+    """
     return assemble(solver.name, solver.scenario, solver.run())
 
 
@@ -103,7 +114,18 @@ def assemble(method: str, scenario: Scenario, evo: Evolution) -> Result:
 
 
 def resolved_parameters(scenario: Scenario) -> dict:
-    """The numbers a run actually used (natural units), for the record."""
+    """The numbers a run actually used, for the record in summary.json.
+
+    Parameters
+    ----------
+    scenario : Scenario
+
+    Returns
+    -------
+    dict
+        strength lambda (natural units), momentum_std sigma_p and mean_momentum (momentum units),
+        matching and rotating_wave as used.
+    """
     packet = packet_for(scenario)
     c = scenario.coupling
     return {"strength": c.strength, "momentum_std": packet.momentum_std,
@@ -112,7 +134,13 @@ def resolved_parameters(scenario: Scenario) -> dict:
 
 
 def versions() -> dict:
-    """Versions of recoilsim and the libraries a result depends on."""
+    """Versions of recoilsim and the libraries a result depends on.
+
+    Returns
+    -------
+    dict
+        Package name -> version string ("not installed" where missing), and the Python version.
+    """
     out = {"python": platform.python_version()}
     for name in ("recoilsim", "numpy", "scipy", "qutip"):
         try:

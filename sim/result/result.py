@@ -48,10 +48,23 @@ class Result:
 
     @property
     def warnings(self) -> list[str]:
+        """The run's warnings (plain-language lines, each naming the key to change)."""
         return self.summary.get("warnings", [])
 
     def to_dataframe(self):
-        """Time series as a pandas DataFrame (columns t, excited, p_mean, p_var, x_var, purity)."""
+        """Time series as a pandas DataFrame.
+
+        Returns
+        -------
+        pandas.DataFrame
+            Columns t (time units), excited, p_mean (momentum), p_var (momentum^2), x_var (length^2)
+            and purity, in natural units.
+
+        Raises
+        ------
+        ImportError
+            When pandas is not installed.
+        """
         try:
             import pandas as pd
         except ImportError as exc:  # pandas is optional
@@ -60,14 +73,24 @@ class Result:
                              "p_var": self.p_var, "x_var": self.x_var, "purity": self.purity})
 
     def plot(self, ax=None, figure: str = "decay"):
-        """Draw one of the run's figures into `ax` (a new figure if None); returns the axes.
+        """Draw one of the run's figures into `ax` (a new stamped figure if None).
 
         Parameters
         ----------
         ax : matplotlib Axes, optional
         figure : str
-            "decay" (P_e(t) on a log axis with its golden-rule exponential), "momentum" or
-            "variance" (the names of `sim.plotting.FIGURES`).
+            "decay" (P_e(t) on a log axis with its golden-rule exponential), "momentum" (recoil
+            broadening) or "variance" (packet spreading).
+
+        Returns
+        -------
+        matplotlib Axes
+            The axes drawn into.
+
+        Raises
+        ------
+        LookupError
+            For an unknown figure name.
         """
         if figure not in DRAWERS:
             raise LookupError(f"figure {figure!r}: no such figure; allowed: "

@@ -19,12 +19,17 @@ def solver_class(method: str) -> type[Solver]:
     Parameters
     ----------
     method : str
-        A key of `METHODS`.
+        A key of `METHODS` ("perturbative", "markov", "exact", "fock").
 
     Returns
     -------
     type
-        The `Solver` subclass.
+        The `Solver` subclass named by ``METHODS[method]`` ("module:Class").
+
+    Raises
+    ------
+    KeyError
+        If `method` is not a key of `METHODS`.
     """
     module, name = METHODS[method].split(":")
     return getattr(import_module(module), name)
@@ -45,6 +50,15 @@ def solver_for(scenario, method: str | None = None, **options) -> Solver:
     Returns
     -------
     Solver
+        An instance of the registered class, not yet run (`Solver.run` evolves it).
+
+    Raises
+    ------
+    ScenarioError
+        If the scenario does not load or validate, or the chosen method cannot honour it (e.g.
+        method "exact" with a thermal field).
+    KeyError
+        If `method` is not a key of `METHODS`.
     """
     s = load_scenario(scenario)
     return solver_class(method or s.run.method)(s, **options)

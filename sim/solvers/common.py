@@ -36,7 +36,9 @@ RECURRENCE_SLACK = 1.05
 def sample_times(scenario: Scenario) -> np.ndarray:
     """Sample times t_n = n t_max / (samples - 1), n = 0 .. samples - 1 (time units).
 
-    t_max defaults to AUTO_LIFETIMES golden-rule lifetimes, AUTO_LIFETIMES / Gamma_packet.
+    t_max is `run.t_max`, or by default AUTO_LIFETIMES golden-rule lifetimes,
+    t_max = AUTO_LIFETIMES / Gamma_packet, with Gamma_packet the golden-rule rate averaged over
+    the packet (`sim.physics.golden_rule.packet_rate`, 1 / time units).
 
     Parameters
     ----------
@@ -45,7 +47,12 @@ def sample_times(scenario: Scenario) -> np.ndarray:
     Returns
     -------
     ndarray
-        linspace(0, t_max, run.samples).
+        linspace(0, t_max, run.samples) (time units).
+
+    Raises
+    ------
+    ScenarioError
+        If run.t_max is missing and the golden-rule rate is zero (no automatic choice).
     """
     t_max = scenario.run.t_max
     if t_max is None:
@@ -58,12 +65,41 @@ def sample_times(scenario: Scenario) -> np.ndarray:
 
 
 def snapshot_indices(samples: int, count: int = SNAPSHOTS) -> np.ndarray:
-    """Indices of `count` evenly spread sample times, first and last included."""
+    """Indices of `count` evenly spread sample times, first and last included.
+
+    Parameters
+    ----------
+    samples : int
+        Number of sample times.
+    count : int, optional
+        Number of snapshots wanted (default SNAPSHOTS).
+
+    Returns
+    -------
+    ndarray of int
+        The distinct values of round(linspace(0, samples - 1, count)), increasing (fewer than
+        `count` when samples < count).
+    """
     return np.unique(np.linspace(0, samples - 1, count).round().astype(int))
 
 
 def masked(indices: np.ndarray, samples: int, values: np.ndarray) -> np.ndarray:
-    """An array over all samples with `values` at `indices` and nan elsewhere."""
+    """An array over all samples with `values` at `indices` and nan elsewhere.
+
+    Parameters
+    ----------
+    indices : ndarray of int
+        Sample indices where values are known.
+    samples : int
+        Length of the result.
+    values : ndarray
+        Values at `indices` (any units; kept).
+
+    Returns
+    -------
+    ndarray, shape (samples,)
+        Float array, nan off `indices`.
+    """
     out = np.full(samples, np.nan)
     out[indices] = values
     return out
@@ -76,8 +112,25 @@ def axis_grid(scenario: Scenario, packet: Packet, model: COMModel,
               points: int = AXIS_POINTS) -> np.ndarray:
     """Axis momenta covering the packet and one recoil kick either side (momentum units).
 
-    Centre p0 along the axis, half-width 6 sigma_p + 1.5 (E_e(p_fast) - M_g): an emitted
-    quantum carries at most the excited energy above M_g.
+    Centre p0 along the axis (`scenario.mean_momentum`), half-width
+    6 sigma_p + 1.5 (E_e(p_fast) - M_g) with p_fast = |p0| + PACKET_REACH sigma_p
+    (`Packet.fastest_momentum`): an emitted quantum carries at most the excited energy above
+    M_g, and |k| <= w_k.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    packet : Packet
+        The scenario's packet (`sim.physics.field.packet_for`).
+    model : COMModel
+        The scenario's centre-of-mass model (`sim.physics.models.model_for`).
+    points : int, optional
+        Number of grid points (default AXIS_POINTS).
+
+    Returns
+    -------
+    ndarray, shape (points,)
+        Uniform grid of axis momenta (momentum units).
     """
     reach = float(model.energy(EXCITED, packet.fastest_momentum()))
     centre, width = scenario.mean_momentum, 6 * packet.momentum_std + 1.5 * reach
@@ -85,14 +138,39 @@ def axis_grid(scenario: Scenario, packet: Packet, model: COMModel,
 
 
 def cell_edges(grid: np.ndarray) -> np.ndarray:
-    """Edges of the cells around the points of a uniform grid (midpoints, ends extended)."""
+    """Edges of the cells around the points of a uniform grid (midpoints, ends extended).
+
+    Parameters
+    ----------
+    grid : ndarray, shape (N,)
+        Uniform grid (any units; momentum units here).
+
+    Returns
+    -------
+    ndarray, shape (N + 1,)
+        Midpoints between neighbours, plus grid[0] - step / 2 and grid[-1] + step / 2 (step 1
+        for a one-point grid), in the units of `grid`.
+    """
     step = grid[1] - grid[0] if grid.size > 1 else 1.0
     return np.concatenate(([grid[0] - 0.5 * step], 0.5 * (grid[1:] + grid[:-1]),
                            [grid[-1] + 0.5 * step]))
 
 
 def bin_index(grid: np.ndarray, values) -> np.ndarray:
-    """Index of the grid cell (`cell_edges`) holding each value; -1 outside the grid."""
+    """Index of the grid cell (`cell_edges`) holding each value; -1 outside the grid.
+
+    Parameters
+    ----------
+    grid : ndarray
+        Uniform grid (momentum units).
+    values : array_like
+        Values to place (same units as `grid`).
+
+    Returns
+    -------
+    ndarray of int
+        Same shape as `values`: the cell i with edges[i] <= value < edges[i + 1], or -1.
+    """
     values = np.asarray(values, dtype=float)
     edges = cell_edges(grid)
     cell = np.searchsorted(edges, values, side="right") - 1
@@ -107,9 +185,9 @@ def histogram(grid: np.ndarray, values, probability) -> np.ndarray:
     grid : ndarray
         Uniform grid of momenta (momentum units).
     values : ndarray
-        Where each mass sits, shape (N,).
+        Where each mass sits, shape (N,) (momentum units).
     probability : ndarray
-        Masses, shape (N,) or (N, columns); masses outside the grid are dropped.
+        Masses (dimensionless), shape (N,) or (N, columns); masses outside the grid are dropped.
 
     Returns
     -------
@@ -128,7 +206,22 @@ def histogram(grid: np.ndarray, values, probability) -> np.ndarray:
 
 
 def emitted_speed(model: COMModel, scenario: Scenario) -> float:
-    """Fastest ground-detector speed after a resonant emission, v_g(|p_fast| + k*) (units of c)."""
+    """Fastest ground-detector speed after a resonant emission (units of c, dimensionless).
+
+    v_g(|p_fast| + k*), with p_fast = |p0| + PACKET_REACH sigma_p the largest momentum the
+    packet reaches and k* the resonant emission momentum at rest
+    (`COMModel.rest_emission_momentum`).
+
+    Parameters
+    ----------
+    model : COMModel
+    scenario : Scenario
+
+    Returns
+    -------
+    float
+        |dE_g/dp| at |p_fast| + k* (units of c).
+    """
     packet = packet_for(scenario)
     return float(abs(model.velocity(GROUND, packet.fastest_momentum()
                                     + model.rest_emission_momentum())))
@@ -137,19 +230,63 @@ def emitted_speed(model: COMModel, scenario: Scenario) -> float:
 def returning_box_length(t_max: float, speed: float, margin: float) -> float:
     """Box length L = margin (1 + v) t_max whose emitted wave returns after margin x t_max.
 
-    The wave runs against the detector at relative speed 1 + v, so it comes back after
-    `box_return_time(L, v)` = L / (1 + v) (length and time units, c = 1).
+    The wave runs against the detector at relative speed 1 + v, so in a periodic box of
+    length L it comes back after `box_return_time(L, v)` = L / (1 + v) (c = 1).
+
+    Parameters
+    ----------
+    t_max : float
+        Last sample time (time units).
+    speed : float
+        Detector speed v (units of c, `emitted_speed`).
+    margin : float
+        Return time in units of t_max (dimensionless).
+
+    Returns
+    -------
+    float
+        L (length units, 1 / momentum units).
     """
     return margin * (1 + speed) * t_max
 
 
 def box_return_time(length: float, speed: float) -> float:
-    """L / (1 + v): when the emitted wave first returns to the detector in a periodic box."""
+    """When the emitted wave first returns to the detector in a periodic box: L / (1 + v).
+
+    Parameters
+    ----------
+    length : float
+        Box length L (length units).
+    speed : float
+        Detector speed v (units of c).
+
+    Returns
+    -------
+    float
+        L / (1 + v) (time units, c = 1).
+    """
     return length / (1 + speed)
 
 
 def recurrence_warning(t_max: float, recurrence: float, what: str, key: str) -> list[str]:
-    """The bath-recurrence warning when t_max comes within RECURRENCE_SLACK of `recurrence`."""
+    """The bath-recurrence warning when t_max comes within RECURRENCE_SLACK of `recurrence`.
+
+    Parameters
+    ----------
+    t_max : float
+        Last sample time (time units).
+    recurrence : float
+        When the discrete bath stops acting as a continuum (time units).
+    what : str
+        What recurs, for the message.
+    key : str
+        The scenario key to raise, for the message.
+
+    Returns
+    -------
+    list of str
+        Empty when t_max RECURRENCE_SLACK <= recurrence, else one warning.
+    """
     if t_max * RECURRENCE_SLACK <= recurrence:
         return []
     return [f"bath recurrence before t_max: {what} at t = {recurrence:.4g}, t_max = {t_max:.4g}; "
@@ -160,7 +297,18 @@ def recurrence_warning(t_max: float, recurrence: float, what: str, key: str) -> 
 
 
 def norm_warning(norm: np.ndarray | None) -> list[str]:
-    """A warning when the total probability departs from 1 by more than NORM_TOLERANCE."""
+    """A warning when the total probability departs from 1 by more than NORM_TOLERANCE.
+
+    Parameters
+    ----------
+    norm : ndarray or None
+        Total probability over time (dimensionless), or None when not checked.
+
+    Returns
+    -------
+    list of str
+        Empty when norm is None or max |norm - 1| <= NORM_TOLERANCE, else one warning.
+    """
     if norm is None:
         return []
     drift = float(np.max(np.abs(np.asarray(norm) - 1.0)))
@@ -171,14 +319,42 @@ def norm_warning(norm: np.ndarray | None) -> list[str]:
 
 
 def galilean_reach_speed(scenario: Scenario, packet: Packet) -> float:
-    """(|p0| + RWA_SPEED_REACH sigma_p) / M_g: the speed a galilean packet reaches (units of c)."""
+    """(|p0| + RWA_SPEED_REACH sigma_p) / M_g: the speed a galilean packet reaches (units of c).
+
+    Parameters
+    ----------
+    scenario : Scenario
+        Supplies the ground rest mass M_g (energy units).
+    packet : Packet
+        Supplies |p0| and sigma_p (momentum units).
+
+    Returns
+    -------
+    float
+        The speed (units of c, dimensionless); it may exceed 1 for a galilean model.
+    """
     return (packet.mean_speed + RWA_SPEED_REACH * packet.momentum_std) / scenario.detector.ground_mass
 
 
 def physics_warnings(scenario: Scenario, rate: float) -> list[str]:
-    """Warnings every method shares: a large perturbation parameter Gamma/Omega, and the
-    rotating-wave approximation where counter-rotating terms are resonant (a galilean packet
-    reaching |v| > 1, anomalous Doppler emission)."""
+    """Warnings every method shares.
+
+    A large perturbation parameter Gamma / Omega (above WEAK_COUPLING_LIMIT, Omega the
+    detector gap), and the rotating-wave approximation where counter-rotating terms are
+    resonant (a galilean packet reaching |v| = `galilean_reach_speed` > 1: anomalous Doppler
+    emission).
+
+    Parameters
+    ----------
+    scenario : Scenario
+    rate : float
+        The golden-rule rate Gamma (1 / time units).
+
+    Returns
+    -------
+    list of str
+        Zero, one or two warnings.
+    """
     out = []
     gap = scenario.detector.gap
     if rate / gap > WEAK_COUPLING_LIMIT:

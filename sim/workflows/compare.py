@@ -33,7 +33,25 @@ REFUSING = ("fock",)
 
 
 def run_methods(scenario) -> tuple[dict, dict]:
-    """Results of every method that runs, and method -> reason for those skipped."""
+    """Results of every method that runs, and method -> reason for those skipped.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        A loaded scenario (`sim.physics.checks.load_scenario`).
+
+    Returns
+    -------
+    results : dict
+        Method key -> `Result`, in the order of `COMPARED`.
+    skipped : dict
+        Method key -> reason (one line) for each method of `REFUSING` that refused the scenario.
+
+    Raises
+    ------
+    ScenarioError
+        If a method not in `REFUSING` refuses the scenario.
+    """
     results, skipped = {}, {}
     for method in COMPARED:
         try:
@@ -46,13 +64,48 @@ def run_methods(scenario) -> tuple[dict, dict]:
 
 
 def common_curves(results: dict) -> tuple[np.ndarray, dict]:
-    """Sample times of the first result and every excited population interpolated onto them."""
+    """Sample times of the first result and every excited population interpolated onto them.
+
+    Parameters
+    ----------
+    results : dict
+        Method key -> `Result` (at least one), as from `run_methods`.
+
+    Returns
+    -------
+    times : ndarray
+        Sample times of the first result (natural units: inverse energy).
+    curves : dict
+        Method key -> excited-state population (dimensionless) at `times`, interpolated
+        linearly.
+    """
     times = next(iter(results.values())).times
     return times, {m: np.interp(times, r.times, r.excited) for m, r in results.items()}
 
 
 def compare_summary(scenario, results: dict, skipped: dict, curves: dict) -> dict:
-    """The compare folder's summary.json contents."""
+    """The compare folder's summary.json contents.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        The compared scenario (its title and its source as read are recorded).
+    results : dict
+        Method key -> `Result` of each method that ran.
+    skipped : dict
+        Method key -> reason for each method skipped.
+    curves : dict
+        Method key -> excited-state population on common sample times (`common_curves`).
+
+    Returns
+    -------
+    dict
+        "title", "simulated", "note", "methods", "skipped", "rate_golden_rule" and
+        "rate_fitted" (method -> rate; inverse time, natural units as in each Result's
+        summary), "max_difference_from_exact" (method -> largest absolute difference of the
+        excited population from exact; None without an exact run), "warnings" (method ->
+        list) and "scenario".
+    """
     reference = curves.get(REFERENCE)
     return {
         "title": scenario.title,
@@ -71,7 +124,31 @@ def compare_summary(scenario, results: dict, skipped: dict, curves: dict) -> dic
 
 
 def compare_to_folder(scenario, out, force: bool = False) -> Path:
-    """Run every method on `scenario` and write compare.csv, compare.png, summary.json to `out`."""
+    """Run every method on `scenario` and write compare.csv, compare.png, summary.json to `out`.
+
+    Parameters
+    ----------
+    scenario : Scenario, str, Path or mapping
+        Loaded with `sim.physics.checks.load_scenario` when it is not a Scenario yet.
+    out : str or Path
+        The output folder, replaced as a whole once every file is written; the times of
+        compare.csv are in output units for a scenario with units, natural units otherwise.
+    force : bool
+        Replace a non-empty `out`.
+
+    Returns
+    -------
+    Path
+        `out`.
+
+    Raises
+    ------
+    OutputExists
+        If `out` is a file, or a non-empty folder and `force` is not given (before any run).
+    ScenarioError
+        If the scenario does not load or validate, or a method other than those of `REFUSING`
+        refuses it.
+    """
     scenario = load_scenario(scenario)
     units = scenario.units
     out = Path(out)

@@ -34,17 +34,55 @@ README_FIGURES = {
 
 
 def default_scenario():
-    """The bundled default scenario (sim/data/default.toml)."""
+    """The bundled default scenario (sim/data/default.toml).
+
+    Returns
+    -------
+    Scenario
+        Loaded and validated (natural units).
+    """
     return load_scenario(bundled("default"))
 
 
 def bundled(name: str) -> Path:
-    """Path of a scenario shipped inside the package (sim/data/NAME.toml)."""
+    """Path of a scenario shipped inside the package (sim/data/NAME.toml).
+
+    Parameters
+    ----------
+    name : str
+        File stem of the scenario, e.g. "default".
+
+    Returns
+    -------
+    Path
+        The file's path (its existence is not checked).
+    """
     return Path(__file__).parents[1] / "data" / f"{name}.toml"
 
 
 def build_demo(folder: Path, scenario=None) -> dict:
-    """Write the demo's files into an existing empty `folder`; returns a short report."""
+    """Write the demo's files into an existing empty `folder`; returns a short report.
+
+    Parameters
+    ----------
+    folder : Path
+        An existing empty folder; its sub-folders are written atomically one by one, the
+        folder itself is not staged (`run_demo` does that).
+    scenario : Scenario, optional
+        The scenario to demonstrate; default: `default_scenario()`.
+
+    Returns
+    -------
+    dict
+        {"rate": packet-averaged golden-rule rate (inverse time; output units for a scenario
+        with units, natural units otherwise), "exact": the exact run's Result summary
+        (natural units), "sweep": the counts of `run_sweep`}.
+
+    Raises
+    ------
+    ScenarioError
+        If a method refuses `scenario`, or a point of the packet-width sweep is invalid.
+    """
     scenario = scenario or default_scenario()
     report = rates_report(scenario, None)
     write_json(folder / "rates.json", report)
@@ -59,10 +97,23 @@ def build_demo(folder: Path, scenario=None) -> dict:
 def run_demo(out: Path, force: bool = False) -> dict:
     """`recoilsim demo`: build the demo into `out` (atomically as a whole).
 
+    Parameters
+    ----------
+    out : Path
+        The demo folder, replaced as a whole once complete.
+    force : bool
+        Replace a non-empty `out`.
+
     Returns
     -------
     dict
-        {"title", "rate" (golden rule), "exact" (the exact run's summary), "sweep" (counts)}.
+        {"title", "rate" (golden rule, inverse time, natural units), "exact" (the exact run's
+        summary), "sweep" (counts)}.
+
+    Raises
+    ------
+    OutputExists
+        If `out` is a file, or a non-empty folder and `force` is not given.
     """
     scenario = default_scenario()
     with output_folder(out, force=force) as stage:
@@ -71,7 +122,18 @@ def run_demo(out: Path, force: bool = False) -> dict:
 
 
 def make_readme_figures(out: Path) -> list[Path]:
-    """Regenerate the figures the README shows into `out` (by building the demo once)."""
+    """Regenerate the figures the README shows into `out` (by building the demo once).
+
+    Parameters
+    ----------
+    out : Path
+        Folder of the figures, created if missing; each figure is replaced atomically.
+
+    Returns
+    -------
+    list of Path
+        The figures written, one per entry of `README_FIGURES`.
+    """
     out.mkdir(parents=True, exist_ok=True)
     written = []
     with tempfile.TemporaryDirectory() as tmp:

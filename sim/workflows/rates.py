@@ -16,6 +16,7 @@ def rates_report(scenario, at: np.ndarray | None) -> dict:
     Parameters
     ----------
     scenario : Scenario
+        A loaded scenario.
     at : ndarray, optional
         Momenta along the packet axis (output units with a scenario in physical units, natural
         units otherwise); default: a grid covering the packet (`template_grid`).
@@ -44,5 +45,13 @@ def rates_report(scenario, at: np.ndarray | None) -> dict:
 
 
 def write_rates_figure(scenario, path: str | Path) -> None:
-    """rates.png of the scenario (`sim.plotting.rates_figure`), written atomically."""
+    """rates.png of the scenario (`sim.plotting.rates_figure`), written atomically.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        A loaded scenario.
+    path : str or Path
+        The PNG file to write (replaced if it exists).
+    """
     save(rates_figure(scenario), path)

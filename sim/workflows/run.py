@@ -20,8 +20,11 @@ def write_result(result: Result, out: str | Path, *, force: bool = False, figure
     Parameters
     ----------
     result : Result
+        The run to write.
     out : str or Path
         The run folder (replaced only with `force`).
+    force : bool
+        Replace a non-empty `out`.
     figures : bool
         Draw the registered figures (`sim.plotting.FIGURES`) too.
     extra_summary : dict, optional
@@ -30,7 +33,12 @@ def write_result(result: Result, out: str | Path, *, force: bool = False, figure
     Returns
     -------
     dict
-        The summary written to summary.json.
+        The summary written to summary.json (output units for a scenario with units).
+
+    Raises
+    ------
+    OutputExists
+        If `out` is a file, or a non-empty folder and `force` is not given.
     """
     with output_folder(out, force) as stage:
         summary = write_tables(result, stage, extra_summary)
@@ -41,7 +49,22 @@ def write_result(result: Result, out: str | Path, *, force: bool = False, figure
 
 
 def convergence_report(result: Result, refined_result: Result) -> dict:
-    """Largest change of the excited population when the discretisation is refined."""
+    """Largest change of the excited population when the discretisation is refined.
+
+    Parameters
+    ----------
+    result : Result
+        The run as configured.
+    refined_result : Result
+        The same scenario with every discretisation parameter refined (`Solver.refined`).
+
+    Returns
+    -------
+    dict
+        "max_change_excited": largest absolute change of the excited population
+        (dimensionless) at the sample times of `result`, the refined curve interpolated
+        linearly; "refined": the refined run's stats.
+    """
     fine = np.interp(result.times, refined_result.times, refined_result.excited)
     return {"max_change_excited": float(np.max(np.abs(fine - result.excited))),
             "refined": refined_result.summary.get("stats", {})}
@@ -50,10 +73,31 @@ def convergence_report(result: Result, refined_result: Result) -> dict:
 def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bool) -> dict:
     """Run the scenario's method, optionally the convergence check, and write the folder.
 
+    Parameters
+    ----------
+    scenario : Scenario, str, Path or mapping
+        Loaded with `sim.physics.checks.load_scenario` when it is not a Scenario yet.
+    out : Path
+        The run folder, written as a whole after the run.
+    check : bool
+        Also run the refined solver (`Solver.refined`) and add "convergence" to the summary.
+    force : bool
+        Replace a non-empty `out`.
+    progress : bool
+        Show a progress bar on stderr during long runs.
+
     Returns
     -------
     dict
         The summary written (with "convergence" when `check`).
+
+    Raises
+    ------
+    OutputExists
+        If `out` is a file, or a non-empty folder and `force` is not given (before the run).
+    ScenarioError
+        If the scenario does not load or validate, or its method cannot honour it
+        (`ResourceError` for a run too large for the memory).
     """
     refuse_existing(out, force)  # before the run, not after it
     solver = solver_for(scenario, progress=progress)
@@ -70,5 +114,24 @@ def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bo
 
 
 def dry_run(scenario) -> tuple[Estimate, float]:
-    """The run's size estimate and the memory available (bytes), without running it."""
+    """The run's size estimate and the memory available (bytes), without running it.
+
+    Parameters
+    ----------
+    scenario : Scenario, str, Path or mapping
+        Loaded with `sim.physics.checks.load_scenario` when it is not a Scenario yet.
+
+    Returns
+    -------
+    estimate : Estimate
+        Size of the run with the scenario's method (states, memory in bytes, work in
+        floating-point operations).
+    available : float
+        Memory available to a new allocation (bytes).
+
+    Raises
+    ------
+    ScenarioError
+        If the scenario does not load or validate, or its method cannot honour it.
+    """
     return solver_for(scenario).estimate(), available_memory()

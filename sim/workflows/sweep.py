@@ -9,9 +9,10 @@ Layout of DIR (one sweep per folder):
 
 * ``sweep.json``: the sweep's definition (scenario as read, the varied keys and values); a rerun
   must match it;
-* ``point-0000/`` ...: one run folder per point, written by :func:`sim.workflows.run.write_result` as a
-  whole (staged folder + rename), its summary.json carrying ``"sweep_point"``; a point whose
-  run raised holds only ``failed.json`` (written the same way) with its one-line error;
+* ``point-0000/`` ...: one run folder per point, written by
+  :func:`sim.workflows.run.write_result` as a whole (staged folder + rename), its summary.json
+  carrying ``"sweep_point"``; a point whose run raised holds only ``failed.json`` (written the
+  same way) with its one-line error;
 * ``sweep.csv``: one row per finished point (a column per varied key named by its dotted key,
   then rate_golden_rule, rate_fitted, status = "ok" or "failed: <error>"), rebuilt atomically
   from the point records after each point.  Rates are those of summary.json: natural units, or
@@ -113,7 +114,28 @@ def _range_end(text: str, what: str, spec: str) -> tuple[float, str]:
 
 
 def parse_range(spec: str, body: str) -> tuple:
-    """Values of 'a:b:n' (linear) or 'a:b:nlog' (geometric), numbers or numbers with a unit."""
+    """Values of 'a:b:n' (linear) or 'a:b:nlog' (geometric), numbers or numbers with a unit.
+
+    Parameters
+    ----------
+    spec : str
+        The whole --vary argument (quoted in messages).
+    body : str
+        Its SPEC, the text after "=": 'a:b:n' or 'a:b:nlog', each end a number or a number
+        with a unit ("50 nm").
+
+    Returns
+    -------
+    tuple
+        n floats, as a scenario file would give the key, or, when the ends carry a unit, n
+        strings "value unit" (12 significant digits) for the scenario to convert.
+
+    Raises
+    ------
+    UsageError
+        If the count is not a whole number >= 1, an end is not a number, the ends' units
+        differ, or a log range has an end <= 0.
+    """
     start, stop, count = (part.strip() for part in body.split(":"))
     log = count.lower().endswith("log")
     count = count[:-3] if log else count
@@ -134,7 +156,25 @@ def parse_range(spec: str, body: str) -> tuple:
 
 
 def parse_vary(text: str) -> Axis:
-    """KEY=SPEC -> Axis; UsageError (one line) for a bad key or spec."""
+    """KEY=SPEC -> Axis; UsageError (one line) for a bad key or spec.
+
+    Parameters
+    ----------
+    text : str
+        One --vary argument: a dotted scenario key, "=", and a range (`parse_range`) or a
+        list v1,v2,... (each item an int, float, true/false, or a string).
+
+    Returns
+    -------
+    Axis
+        The key and its values, in the order given.
+
+    Raises
+    ------
+    UsageError
+        If "=" or the spec is missing, the key is not a scenario key, the range is malformed,
+        or a list item is empty.
+    """
     key, sep, body = text.partition("=")
     key, body = key.strip(), body.strip()
     table, _, name = key.partition(".")
@@ -154,7 +194,23 @@ def parse_vary(text: str) -> Axis:
 
 
 def sweep_points(axes: list[Axis]) -> list[dict]:
-    """Every combination of the axes' values (the first axis varies slowest)."""
+    """Every combination of the axes' values (the first axis varies slowest).
+
+    Parameters
+    ----------
+    axes : list of Axis
+        The parsed --vary arguments.
+
+    Returns
+    -------
+    list of dict
+        One dict per point: dotted key -> value.
+
+    Raises
+    ------
+    UsageError
+        If a key is varied twice, or the sweep would have more than `MAX_POINTS` points.
+    """
     keys = [axis.key for axis in axes]
     if len(set(keys)) != len(keys):
         raise UsageError("--vary: each key may be varied once; repeated: "
@@ -166,11 +222,36 @@ def sweep_points(axes: list[Axis]) -> list[dict]:
 
 
 def point_label(values: dict) -> str:
+    """A point's values as text, "key=value, ..." (for messages).
+
+    Parameters
+    ----------
+    values : dict
+        Dotted key -> value of one point.
+
+    Returns
+    -------
+    str
+    """
     return ", ".join(f"{k}={v}" for k, v in values.items())
 
 
 def invalid_points(scenario: Scenario, points: list[dict]) -> list[str]:
-    """One problem line per invalid key value (checked before anything runs)."""
+    """One problem line per invalid key value (checked before anything runs).
+
+    Parameters
+    ----------
+    scenario : Scenario
+        The sweep's base scenario.
+    points : list of dict
+        The points (`sweep_points`).
+
+    Returns
+    -------
+    list of str
+        "point KEY=VALUE, ...: problem" lines, at most `LISTED_PROBLEMS` of them and then one
+        line counting the rest; empty when every point validates.
+    """
     problems = []
     for values in points:
         try:
@@ -189,12 +270,35 @@ def invalid_points(scenario: Scenario, points: list[dict]) -> list[str]:
 
 
 def folder_name(index: int, count: int) -> str:
-    """point-0000 ... (at least four digits, enough for `count` points)."""
+    """point-0000 ... (at least four digits, enough for `count` points).
+
+    Parameters
+    ----------
+    index : int
+        The point's index (from 0).
+    count : int
+        Number of points in the sweep.
+
+    Returns
+    -------
+    str
+        The folder's name, e.g. "point-0007".
+    """
     return f"point-{index:0{max(4, len(str(count - 1)))}d}"
 
 
 def one_line(exc: BaseException) -> str:
-    """An exception as one line: its type and the first line of its message."""
+    """An exception as one line: its type and the first line of its message.
+
+    Parameters
+    ----------
+    exc : BaseException
+
+    Returns
+    -------
+    str
+        "TypeName: first line", or the type name alone for an empty message.
+    """
     text = str(exc).strip().splitlines()
     return f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__
 
@@ -203,6 +307,16 @@ def run_point(task: PointTask) -> int:
     """Run one point and write its record (run folder, or failed.json); returns its index.
 
     Any exception of the run is recorded, not raised: one failed point never stops a sweep.
+
+    Parameters
+    ----------
+    task : PointTask
+        The point: base scenario, index, dotted key -> value, and its folder.
+
+    Returns
+    -------
+    int
+        ``task.index``.
     """
     folder = Path(task.folder)
     record = {"index": task.index, "values": task.values}
@@ -217,7 +331,23 @@ def run_point(task: PointTask) -> int:
 
 
 def point_row(folder: Path, values: dict) -> dict | None:
-    """The sweep.csv row of a point from its record on disk; None if it has not finished."""
+    """The sweep.csv row of a point from its record on disk; None if it has not finished.
+
+    Parameters
+    ----------
+    folder : Path
+        The point's folder.
+    values : dict
+        The point's dotted key -> value.
+
+    Returns
+    -------
+    dict or None
+        `values` plus "rate_golden_rule" and "rate_fitted" (inverse time, as in the point's
+        summary.json: natural units, or output units for a scenario with units; nan when
+        absent or failed) and "status" ("ok" or "failed: <error>"); None when the folder holds
+        neither summary.json nor failed.json.
+    """
     summary, failed = folder / "summary.json", folder / FAILED_FILE
     if summary.is_file():
         data = json.loads(summary.read_text())
@@ -236,14 +366,48 @@ def point_row(folder: Path, values: dict) -> dict | None:
 
 
 def definition(scenario: Scenario, axes: list[Axis]) -> dict:
-    """What identifies a sweep: the scenario as read and the varied keys with their values."""
+    """What identifies a sweep: the scenario as read and the varied keys with their values.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        The base scenario (its `source`, as read, is recorded).
+    axes : list of Axis
+        The varied keys and their values.
+
+    Returns
+    -------
+    dict
+        The contents of sweep.json, JSON-safe: {"simulated": True, "scenario", "vary":
+        [[key, values], ...]}.
+    """
     return json_safe({"simulated": True, "scenario": dict(scenario.source),
                       "vary": [[a.key, list(a.values)] for a in axes]})
 
 
 @contextmanager
 def sweep_folder(out: Path, ident: dict):
-    """Lock DIR for this sweep, check it holds this sweep (or nothing), clear stale stages."""
+    """Lock DIR for this sweep, check it holds this sweep (or nothing), clear stale stages.
+
+    Parameters
+    ----------
+    out : Path
+        The sweep folder, created if missing.
+    ident : dict
+        The sweep's definition (`definition`): written to sweep.json in a new folder, compared
+        with it in an existing one.
+
+    Yields
+    ------
+    Path
+        `out`, locked against other sweeps until the block ends.
+
+    Raises
+    ------
+    UsageError
+        If `out` is a file, another sweep holds its lock, it holds a different sweep, or it
+        is not empty and holds no sweep.
+    """
     if out.exists() and not out.is_dir():
         raise UsageError(f"--out {str(out)!r}: exists and is not a folder")
     out.mkdir(parents=True, exist_ok=True)
@@ -277,7 +441,17 @@ def _remove(path: Path) -> None:
 
 
 def write_table(out: Path, keys: list[str], rows: dict[int, dict]) -> None:
-    """Rebuild DIR/sweep.csv from the finished points' rows, atomically."""
+    """Rebuild DIR/sweep.csv from the finished points' rows, atomically.
+
+    Parameters
+    ----------
+    out : Path
+        The sweep folder.
+    keys : list of str
+        The varied dotted keys (the first columns).
+    rows : dict
+        Point index -> row (`point_row`), written in index order.
+    """
     ordered = [rows[i] for i in sorted(rows)]
     columns = {name: [row[name] for row in ordered] for name in [*keys, *RESULT_COLUMNS]}
     atomic_write_text(out / TABLE_FILE, csv_text(columns))
@@ -289,7 +463,24 @@ def write_table(out: Path, keys: list[str], rows: dict[int, dict]) -> None:
 
 
 def local_workers(requested: int | None) -> int:
-    """Worker processes: as requested, else one per usable core."""
+    """Worker processes: as requested, else one per usable core.
+
+    Parameters
+    ----------
+    requested : int or None
+        The --workers value; None for the default.
+
+    Returns
+    -------
+    int
+        `requested`, or the number of cores this process may run on (`os.sched_getaffinity`,
+        else `os.cpu_count()`).
+
+    Raises
+    ------
+    UsageError
+        If `requested` < 1.
+    """
     if requested is None:
         return len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (
             os.cpu_count() or 1)
@@ -299,7 +490,30 @@ def local_workers(requested: int | None) -> int:
 
 
 def finished_indices(tasks: list[PointTask], workers: int, scheduler: str | None):
-    """Run the tasks; yield (index, None) as each finishes, (None, error) for a lost one."""
+    """Run the tasks; yield (index, None) as each finishes, (None, error) for a lost one.
+
+    Parameters
+    ----------
+    tasks : list of PointTask
+        The points to run.
+    workers : int
+        Local worker processes (spawned; with 1, or a single task, the points run in this
+        process); ignored with `scheduler`.
+    scheduler : str or None
+        Address of an existing Dask scheduler to run the points on instead.
+
+    Yields
+    ------
+    index : int or None
+        Index of a point whose record is written; None for a point lost with its worker.
+    error : Exception or None
+        Why a point was lost; None otherwise.
+
+    Raises
+    ------
+    UsageError
+        If the scheduler cannot be reached within `SCHEDULER_TIMEOUT` seconds.
+    """
     if not tasks:
         return
     if scheduler:
@@ -333,8 +547,38 @@ def finished_indices(tasks: list[PointTask], workers: int, scheduler: str | None
 
 def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int | None = None,
               scheduler: str | None = None, progress: bool = False) -> dict[str, Any]:
-    """Run (or resume) a sweep into `out`; returns counts {"points", "ok", "failed", "lost",
-    "skipped"} (skipped: finished before this call)."""
+    """Run (or resume) a sweep into `out`; returns counts of its points.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        The loaded base scenario.
+    axes : list of Axis
+        The varied keys (`parse_vary`); the product of their values is swept.
+    out : Path
+        The sweep folder (layout: see the module docstring).
+    workers : int, optional
+        Local worker processes; default one per usable core; ignored with `scheduler`.
+    scheduler : str, optional
+        Address of an existing Dask scheduler whose workers share `out`'s file system.
+    progress : bool
+        Show a progress bar on stderr.
+
+    Returns
+    -------
+    dict
+        Counts {"points", "ok", "failed", "lost", "skipped"} (skipped: finished before this
+        call; lost: with their worker, rerun to resume) and "lost_errors" (one line per lost
+        point).
+
+    Raises
+    ------
+    ScenarioError
+        If any point's values are invalid (nothing runs).
+    UsageError
+        If a key repeats, there are too many points, `workers` < 1, `out` cannot hold this
+        sweep (`sweep_folder`) or the scheduler cannot be reached.
+    """
     points = sweep_points(axes)
     problems = invalid_points(scenario, points)
     if problems:

@@ -35,7 +35,9 @@ def model_for(scenario, name: str | None = None) -> COMModel:
     -------
     COMModel
         With M_g, Omega (energy units), lambda and, for `one-particle`, the matching rule
-        ("nonrelativistic" unless the scenario says otherwise).
+        ("nonrelativistic" unless the scenario says otherwise):
+        lambda_2^2 = 4 M_g M_e lambda^2 ("nonrelativistic") or 4 M_e E_g* lambda^2
+        ("rest-frame").
     """
     d, c = scenario.detector, scenario.coupling
     key = name or d.model

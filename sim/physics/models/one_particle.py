@@ -14,17 +14,57 @@ from .newton_wigner import RelativisticEnergies
 
 
 class OneParticle(RelativisticEnergies):
-    """Relativistically normalised one-particle states of a two-field detector."""
+    """Relativistically normalised one-particle states of a two-field detector.
+
+    E_g(p) = sqrt(p^2 + M_g^2), E_e(p) = sqrt(p^2 + M_e^2), V = 1 / sqrt(2 E_e 2 E_g), and a
+    cubic coupling lambda_2 matched to lambda: lambda_2^2 = 4 M_g M_e lambda^2
+    ("nonrelativistic") or 4 M_e E_g* lambda^2 ("rest-frame"), E_g* = sqrt(k*^2 + M_g^2).
+
+    Parameters
+    ----------
+    ground_mass, gap, strength : float
+        As for :class:`COMModel` (masses and gap in energy units).
+    matching : str
+        "nonrelativistic" or "rest-frame".
+
+    References
+    ----------
+    Relativistic normalisation <p|q> = 2 E_p (2 pi)^3 delta^3(p - q): M. E. Peskin and
+    D. V. Schroeder, An Introduction to Quantum Field Theory (Addison-Wesley, 1995), ch. 2.
+    """
 
     name = "one-particle"
 
     def vertex(self, p_excited, p_ground):
-        """V = 1 / sqrt(2 E_e(p_e) * 2 E_g(p_g)) (inverse energy units)."""
+        """V = 1 / sqrt(2 E_e(p_e) * 2 E_g(p_g)) (inverse energy units).
+
+        Parameters
+        ----------
+        p_excited : array_like
+            COM momentum magnitude of the excited level (momentum units).
+        p_ground : array_like
+            COM momentum magnitude of the ground level (momentum units).
+
+        Returns
+        -------
+        numpy.ndarray
+            V (1 / energy units).
+        """
         return 1.0 / np.sqrt(4 * self.total_energy(EXCITED, p_excited)
                              * self.total_energy(GROUND, p_ground))
 
     def coupling_factor(self):
-        """lambda_2 from the scenario's lambda and the matching rule."""
+        """lambda_2 from the scenario's lambda and the matching rule.
+
+        "rest-frame": lambda_2 = lambda sqrt(4 M_e E_g*), E_g* = sqrt(k*^2 + M_g^2), so that
+        the rest-frame rate equals the newton-wigner one (k* being the momentum a massless
+        quantum carries away); otherwise ("nonrelativistic") lambda_2 = lambda sqrt(4 M_g M_e).
+
+        Returns
+        -------
+        float
+            lambda_2 (energy units times those of lambda: energy^((5 - d)/2)).
+        """
         if self.matching == "rest-frame":
             k_star = self.rest_emission_momentum()
             ground_energy = np.sqrt(k_star * k_star + self.ground_mass ** 2)

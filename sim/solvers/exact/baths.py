@@ -1,29 +1,30 @@
 """Truncated baths of field modes for the exact single-excitation solver.
 
-Under the rotating-wave approximation |e> (x) psi (x) vac splits into total-momentum sectors P: a
-level E_e(P) coupled to modes eps = E_g(|P - k|) + w_k with
+Under the rotating-wave approximation |e> (x) psi (x) vac splits into total-momentum sectors P:
+a level E_e(P) coupled to modes eps = E_g(|P - k|) + w_k with
 
     g_P(k) = c V(|P|, |P - k|) F(k) / sqrt((2 pi)^d 2 w_k)   per sqrt(d^dk),
 
 so a discrete mode of phase-space volume dV carries g = sqrt(|g_P(k)|^2 dV) (energy units).
-Energies are measured from M_g and come from the model (`sim.models`), couplings from
+Energies are measured from M_g and come from the model (`sim.physics.models`), couplings from
 `sim.physics.golden_rule.coupling_density`; nothing is re-derived here.
 
 1D: a periodic box of length L.  Field modes on the lattice k = 2 pi n / L, 0 < |k| <= K
 (k = 0 is dropped for a massless field, where w_0 = 0 and the mode weight diverges; it is kept
-for a massive one), Int dk / 2 pi -> (1/L) sum_n.  The sectors P sit on the same lattice, so that
-the detector momentum P - k after an emission stays on it.
+for a massive one), Int dk / 2 pi -> (1/L) sum_n.  The sectors P sit on the same lattice, so
+that the detector momentum P - k after an emission stays on it.
 
-3D: in each sector |P| the modes are labelled by (|k|, u = cos theta) relative to P.  The azimuth
-is combined exactly (one collective mode per node, weight 2 pi).  u takes Gauss-Legendre nodes;
-|k| is cut into equal-width *energy shells*: every node of a shell gets the shell's centre
-energy, so that all nodes of one shell are degenerate and merge into one bright mode
-(`star.bright_modes`), and the bath's energy spacing is uniform (recurrence 2 pi / shell width).
-The shell edges are placed at E_e(P) + n x width, which puts the level midway between two shell
-energies (the discrete principal-value sum of the Lamb shift is then second-order accurate).
-Each (shell, u) node carries the exact integral of |g|^2 2 pi k^2 dk over the |k| interval whose
-energies fall in the shell (the energy is convex in |k| at fixed u, so that interval is found by
-bisection on at most two monotone pieces).
+3D: in each sector |P| the modes are labelled by (|k|, u = cos theta) relative to P.  The
+azimuth is combined exactly (one collective mode per node, weight 2 pi).  u takes
+Gauss-Legendre nodes; |k| is cut into equal-width *energy shells*: every node of a shell gets
+the shell's centre energy, so that all nodes of one shell are degenerate and merge into one
+bright mode (`star.bright_modes`), and the bath's energy spacing is uniform (recurrence
+2 pi / shell width).  The shell edges are placed at E_e(P) + n x width, which puts the level
+midway between two shell energies (the discrete principal-value sum of the Lamb shift is then
+second-order accurate).  Each (shell, u) node carries the integral of |g|^2 2 pi k^2 dk over
+the |k| interval whose energies fall in the shell, by a SHELL_POINTS-point Gauss-Legendre rule
+(the energy is convex in |k| at fixed u, so that interval is found by bisection on at most two
+monotone pieces).
 
 Units: hbar = c = 1; momenta, energies in the energy unit, lengths and times in its inverse.
 """
@@ -74,11 +75,27 @@ BISECTION_STEPS = 60
 class Sector:
     """One total-momentum sector: a level coupled to discrete modes.
 
-    momentum: P (signed in 1D, |P| in 3D); weight: the packet's probability of the sector (the
-    weights of a bath sum to 1); level_energy: E_e(P) - M_g.  Per mode: mode_energies eps (energy),
-    couplings g (energy), quanta (1D: the signed lattice momentum k; 3D: the |g|^2-weighted mean
-    |k| of the node), lattice (1D: n with k = n dk; empty in 3D), cosines (3D: u of the node),
-    quanta_square (3D: |g|^2-weighted mean k^2; 1D: k^2).
+    Parameters
+    ----------
+    momentum : float
+        P: signed in 1D, |P| in 3D (momentum units).
+    weight : float
+        The packet's probability of the sector; the weights of a bath sum to 1 (dimensionless).
+    level_energy : float
+        E_e(P) - M_g (energy units).
+    mode_energies : ndarray, shape (N,)
+        eps = E_g(|P - k|) + w_k of each mode (energy units).
+    couplings : ndarray, shape (N,)
+        g = sqrt(|g_P(k)|^2 dV) of each mode (energy units).
+    quanta : ndarray, shape (N,)
+        1D: the signed lattice momentum k; 3D: the |g|^2-weighted mean |k| of the node
+        (momentum units).
+    lattice : ndarray of int
+        1D: n with k = n dk, shape (N,); empty in 3D.
+    cosines : ndarray, shape (N,)
+        3D: u = cos theta of the node relative to P; 1D: the sign of k (dimensionless).
+    quanta_square : ndarray, shape (N,)
+        3D: the |g|^2-weighted mean k^2 of the node; 1D: k^2 (momentum^2).
     """
 
     momentum: float
@@ -93,7 +110,13 @@ class Sector:
 
     @property
     def coupling_sum(self) -> float:
-        """sum_k |g_k|^2 = Int J_P(w) dw of the truncated bath (energy^2): the t^2 coefficient."""
+        """sum_k |g_k|^2 = Int J_P(w) dw of the truncated bath: the t^2 coefficient of 1 - P_e.
+
+        Returns
+        -------
+        float
+            sum_k |g_k|^2 (energy^2).
+        """
         return float(np.sum(np.abs(self.couplings) ** 2))
 
 
@@ -101,11 +124,31 @@ class Sector:
 class Bath:
     """A truncated bath: its sectors and the discretisation that made them.
 
-    spacing: 1D lattice spacing 2 pi / L (momentum); 3D energy-shell width (energy).
-    recurrence_time: when the discrete bath stops faking a continuum (1D: the emitted wave's
-    return L / (1 + v); 3D: 2 pi / shell width).  window: the resonance window |eps - E_e| <=
-    window, or None for the full band 0 < |k| <= cutoff.  stride: 1D sectors sit on every
-    stride-th lattice point.  notes: warnings about the discretisation, for the run's summary.
+    Parameters
+    ----------
+    dimensions : int
+        1 or 3.
+    sectors : tuple of Sector
+        The total-momentum sectors; their weights sum to 1.
+    cutoff : float
+        The field's momentum cutoff K (momentum units).
+    spacing : float
+        1D: lattice spacing dk = 2 pi / L (momentum units); 3D: energy-shell width (energy
+        units).
+    recurrence_time : float
+        When the discrete bath stops faking a continuum (time units): 1D the emitted wave's
+        return L / (1 + v); 3D 2 pi / shell width.
+    window : float or None
+        The resonance window |eps - E_e| <= window (energy units), or None for the full band
+        0 < |k| <= cutoff.
+    box_length : float or None, optional
+        1D box length L (length units); None in 3D.
+    stride : int, optional
+        1D sectors sit on every stride-th lattice point (default 1).
+    angular_nodes : int, optional
+        3D Gauss-Legendre nodes in u = cos theta (0 in 1D).
+    notes : tuple of str, optional
+        Warnings about the discretisation, for the run's summary.
     """
 
     dimensions: int
@@ -121,7 +164,13 @@ class Bath:
 
     @property
     def mode_count(self) -> int:
-        """Largest number of modes in one sector."""
+        """Largest number of modes in one sector.
+
+        Returns
+        -------
+        int
+            max over sectors of the mode count (0 without sectors).
+        """
         return max((s.mode_energies.size for s in self.sectors), default=0)
 
 
@@ -136,15 +185,42 @@ def _mode_couplings(model: COMModel, field: Field, P, k, volume):
 
 
 def bath_for(scenario, t_max: float) -> Bath:
-    """The scenario's truncated bath for a run to t_max (defaults overridable in [bath])."""
+    """The scenario's truncated bath for a run to t_max (defaults overridable in [bath]).
+
+    Parameters
+    ----------
+    scenario : Scenario
+    t_max : float
+        Last sample time (time units); the bath must outlast it.
+
+    Returns
+    -------
+    Bath
+        `box_bath` in 1D, `shell_bath` in 3D.
+    """
     if scenario.dimensions == 1:
         return box_bath(scenario, t_max)
     return shell_bath(scenario, t_max)
 
 
 def refined_keys(bath: Bath, factor: float = 1.5) -> dict:
-    """Dotted scenario keys that refine `bath` by `factor`: larger box / finer shells, more
-    nodes and sectors, a higher cutoff and a wider window (for `recoilsim run --check`)."""
+    """Dotted scenario keys that refine `bath` by `factor` (for `recoilsim run --check`).
+
+    field.cutoff x factor and bath.window x factor (when a window is set); 1D: bath.box_length
+    x factor; 3D: bath.radial_nodes = ceil(factor x band / shell width) with band the widest
+    sector's mode-energy range, bath.angular_nodes and bath.sectors x factor (rounded up).
+
+    Parameters
+    ----------
+    bath : Bath
+    factor : float, optional
+        Refinement factor (dimensionless, default 1.5).
+
+    Returns
+    -------
+    dict
+        Dotted key -> new value (natural units).
+    """
     keys = {"field.cutoff": bath.cutoff * factor}
     if bath.window is not None:
         keys["bath.window"] = bath.window * factor
@@ -163,10 +239,24 @@ def refined_keys(bath: Bath, factor: float = 1.5) -> dict:
 
 
 def default_box_length(scenario, model: COMModel, t_max: float) -> float:
-    """L = max(margin (1 + v) t_max + 8 widths, 4 points per sigma_p: 8 pi / sigma_p) (length).
+    """Default 1D box length L (length units).
 
-    The emitted wave, running against the detector at relative speed 1 + v, returns after
-    L / (1 + v); the lattice spacing 2 pi / L must resolve the packet's momentum spread sigma_p.
+    L = max(RECURRENCE_MARGIN (1 + v) t_max + BOX_WIDTHS Delta_x, 2 pi POINTS_PER_SIGMA / sigma_p)
+    with v = `emitted_speed` and Delta_x the packet's position width: the emitted wave, running
+    against the detector at relative speed 1 + v, returns after L / (1 + v); the lattice spacing
+    2 pi / L must resolve the packet's momentum spread sigma_p with POINTS_PER_SIGMA points.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    model : COMModel
+    t_max : float
+        Last sample time (time units).
+
+    Returns
+    -------
+    float
+        L (length units).
     """
     packet = packet_for(scenario)
     speed = emitted_speed(model, scenario)
@@ -176,8 +266,27 @@ def default_box_length(scenario, model: COMModel, t_max: float) -> float:
 
 
 def sector_lattice(scenario, spacing: float, limit: int | None) -> tuple[np.ndarray, int]:
-    """Lattice indices j of the 1D sectors P = j dk covering the packet +- SECTOR_REACH sigma_p,
-    thinned to every stride-th point when there are more than `limit`; returns (j, stride)."""
+    """Lattice indices j of the 1D sectors P = j dk covering the packet.
+
+    The sectors cover p0 +- SECTOR_REACH sigma_p; when there are more than `limit` lattice points
+    they are thinned to every stride-th point, stride = ceil(count / limit), aligned so that the
+    point nearest p0 is kept.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    spacing : float
+        Lattice spacing dk (momentum units).
+    limit : int or None
+        Largest number of sectors; None or 0 for no thinning.
+
+    Returns
+    -------
+    j : ndarray of int
+        Lattice indices of the sectors, increasing.
+    stride : int
+        The thinning stride (1 when not thinned).
+    """
     packet = packet_for(scenario)
     lo = math.ceil((packet.momentum[0] - SECTOR_REACH * packet.momentum_std) / spacing)
     hi = math.floor((packet.momentum[0] + SECTOR_REACH * packet.momentum_std) / spacing)
@@ -190,8 +299,29 @@ def sector_lattice(scenario, spacing: float, limit: int | None) -> tuple[np.ndar
 
 def box_sector(model: COMModel, field: Field, P: float, spacing: float, weight: float,
                window: float | None) -> Sector:
-    """The 1D sector at lattice momentum P: modes k = n dk, 0 < |k| <= cutoff (k = 0 kept for a
-    massive field), restricted to |eps - E_e(P)| <= window when a window is given."""
+    """The 1D sector at lattice momentum P.
+
+    Modes k = n dk with 0 < |k| <= cutoff (k = 0 kept for a massive field), restricted to
+    |eps - E_e(P)| <= window when a window is given (`_window_lattice` lists the candidates);
+    eps = E_g(|P - k|) + w_k and g = sqrt(|g_P(k)|^2 dk).
+
+    Parameters
+    ----------
+    model : COMModel
+    field : Field
+    P : float
+        Signed sector momentum (momentum units).
+    spacing : float
+        Lattice spacing dk = 2 pi / L (momentum units).
+    weight : float
+        The packet's probability of the sector (dimensionless).
+    window : float or None
+        Resonance window (energy units), or None for the full band.
+
+    Returns
+    -------
+    Sector
+    """
     level = float(model.energy(EXCITED, abs(P)))
     if window is None:
         top = math.floor(field.cutoff / spacing * (1 + 1e-12))
@@ -232,14 +362,52 @@ def _on_shell(model: COMModel, field: Field, P: float):
 
 
 def automatic_window(model: COMModel, field: Field, P: float, spacing: float, budget: int) -> float:
-    """Window (energy) holding about `budget` lattice modes around the on-shell emissions at P:
-    a mode count of sum over channels of 2 window / (slope dk)."""
+    """Resonance window holding about `budget` lattice modes around the on-shell emissions at P.
+
+    The mode count of a window is sum over channels of 2 window / (slope dk), slope = |d eps/dk|
+    at the channel's on-shell quantum, so window = budget / sum_c 2 / (slope_c dk).
+
+    Parameters
+    ----------
+    model : COMModel
+    field : Field
+    P : float
+        Signed sector momentum (momentum units).
+    spacing : float
+        Lattice spacing dk (momentum units).
+    budget : int
+        Modes wanted.
+
+    Returns
+    -------
+    float
+        The window (energy units); inf when there is no on-shell channel.
+    """
     density = sum(2.0 / (slope * spacing) for _, slope in _on_shell(model, field, P))
     return budget / density if density > 0 else np.inf
 
 
 def box_bath(scenario, t_max: float) -> Bath:
-    """1D periodic-box bath with sectors on the mode lattice (see the module docstring)."""
+    """1D periodic-box bath with sectors on the mode lattice.
+
+    Box length L = bath.box_length or `default_box_length`; lattice spacing dk = 2 pi / L; sectors
+    P = j dk from `sector_lattice` (at most bath.sectors, default MAX_SECTORS_1D) with weights
+    |psi(P)|^2 normalised to sum 1; modes k = n dk, 0 < |k| <= cutoff (`box_sector`).  When the
+    full band, 2 floor(K / dk) modes, exceeds the budget (bath.modes, default MODE_BUDGET) and no
+    bath.window is given, the modes are restricted to `automatic_window` at the packet's mean
+    momentum.  The recurrence time is L / (1 + v), v = `emitted_speed`.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    t_max : float
+        Last sample time (time units).
+
+    Returns
+    -------
+    Bath
+        With the discretisation warnings (`resolution_notes`) in `notes`.
+    """
     model = model_for(scenario)
     field = field_for(scenario, model)
     packet = packet_for(scenario)
@@ -271,7 +439,24 @@ def box_bath(scenario, t_max: float) -> Bath:
 
 
 def shell_energy(model: COMModel, field: Field, P, k, u):
-    """eps = E_g(|P - k|) + w_k with |P - k| = sqrt(P^2 + k^2 - 2 P k u) (energy units)."""
+    """Mode energy eps = E_g(|P - k|) + w_k with |P - k| = sqrt(P^2 + k^2 - 2 P k u).
+
+    Parameters
+    ----------
+    model : COMModel
+    field : Field
+    P : float
+        |P| of the sector (momentum units).
+    k : array_like
+        |k| of the quantum (momentum units).
+    u : array_like
+        cos theta between k and P (dimensionless), broadcast against k.
+
+    Returns
+    -------
+    ndarray
+        eps (energy units, measured from M_g).
+    """
     q = np.sqrt(np.maximum(P * P + k * k - 2 * P * k * u, 0.0))
     return model.energy(GROUND, q) + field.frequency(k)
 
@@ -299,8 +484,37 @@ def _bisect(func, lo, hi, rising):
 
 def shell_sector(model: COMModel, field: Field, P: float, weight: float, width: float,
                  angular_nodes: int, window: float | None) -> Sector:
-    """The 3D sector |P| discretised in energy shells of `width` (edges at E_e(P) + n width) and
-    Gauss-Legendre nodes in u = cos theta (see the module docstring)."""
+    """The 3D sector |P| discretised in energy shells and Gauss-Legendre nodes in u = cos theta.
+
+    Shell edges at E_e(P) + n width, each shell's nodes at its centre energy
+    E_e(P) + (n + 1/2) width; at each angular node u the energy is monotone on at most two pieces
+    in |k| (split at the bisected turning point of d eps/dk), and each (shell, u) node carries
+    Int |g_P(k)|^2 2 pi k^2 dk over the |k| interval whose energies fall in the shell, times the
+    u quadrature weight (`_piece_nodes`).  Nodes with zero weight are dropped; g = sqrt(weight).
+
+    Parameters
+    ----------
+    model : COMModel
+    field : Field
+    P : float
+        |P| of the sector (momentum units).
+    weight : float
+        The packet's probability of the sector (dimensionless).
+    width : float
+        Shell width (energy units).
+    angular_nodes : int
+        Gauss-Legendre nodes in u.
+    window : float or None
+        Resonance window (energy units), or None for the full band up to the cutoff.
+
+    Returns
+    -------
+    Sector
+
+    References
+    ----------
+    Abramowitz & Stegun, Handbook of Mathematical Functions, ch. 25 (Gauss-Legendre quadrature).
+    """
     level = float(model.energy(EXCITED, P))
     u, u_weights = gauss_legendre(angular_nodes)
     K = field.cutoff
@@ -319,8 +533,11 @@ def shell_sector(model: COMModel, field: Field, P: float, weight: float, width: 
 
 
 def _piece_nodes(model, field, P, level, u, u_weights, width, window, start, stop, rising):
-    """(energy, Int |g|^2 dV, Int |g|^2 k dV, Int |g|^2 k^2 dV, u) of every (shell, u) node on
-    the monotone pieces k in [start(u), stop(u)] of the energy at the angular nodes u."""
+    """The (shell, u) nodes of one monotone piece of the energy at the angular nodes u.
+
+    (energy, Int |g|^2 dV, Int |g|^2 k dV, Int |g|^2 k^2 dV, u) of every (shell, u) node on the
+    monotone pieces k in [start(u), stop(u)], dV = 2 pi k^2 dk x (u weight).
+    """
     e_start = shell_energy(model, field, P, start, u)
     e_stop = shell_energy(model, field, P, stop, u)
     e_lo, e_hi = np.minimum(e_start, e_stop), np.maximum(e_start, e_stop)
@@ -350,12 +567,47 @@ def _piece_nodes(model, field, P, level, u, u_weights, width, window, start, sto
 
 
 def default_shell_width(t_max: float) -> float:
-    """Energy-shell width whose recurrence 2 pi / width is RECURRENCE_MARGIN x t_max (energy)."""
+    """Energy-shell width whose recurrence 2 pi / width is RECURRENCE_MARGIN x t_max.
+
+    Parameters
+    ----------
+    t_max : float
+        Last sample time (time units).
+
+    Returns
+    -------
+    float
+        2 pi / (RECURRENCE_MARGIN t_max) (energy units).
+    """
     return 2 * np.pi / (RECURRENCE_MARGIN * t_max)
 
 
 def shell_bath(scenario, t_max: float) -> Bath:
-    """3D bath: sectors at the packet's |P| quadrature nodes, energy shells x angular nodes."""
+    """3D bath: sectors at the packet's |P| quadrature nodes, energy shells x angular nodes.
+
+    Sectors at the Gauss-Legendre nodes of the packet's |P| density (bath.sectors, default
+    SECTORS_3D; `Packet.quadrature`), each discretised by `shell_sector` with
+    bath.angular_nodes (default ANGULAR_NODES) nodes in u.  The shell width is band / radial_nodes
+    when bath.radial_nodes is given (band: the mode-energy range of the fastest sector, `_band`),
+    else `default_shell_width(t_max)`.  When band / width exceeds the budget (bath.modes, default
+    MODE_BUDGET) and no bath.window is given, the shells are restricted to the window
+    0.5 budget width.  The recurrence time is 2 pi / width.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    t_max : float
+        Last sample time (time units).
+
+    Returns
+    -------
+    Bath
+        With the discretisation warnings (`resolution_notes`) in `notes`.
+
+    References
+    ----------
+    Abramowitz & Stegun, Handbook of Mathematical Functions, ch. 25 (Gauss-Legendre quadrature).
+    """
     model = model_for(scenario)
     field = field_for(scenario, model)
     packet = packet_for(scenario)
@@ -381,7 +633,7 @@ def shell_bath(scenario, t_max: float) -> Bath:
 
 
 def _band(model: COMModel, field: Field, P: float) -> float:
-    """Energy range of the 3D sector |P|: from its lowest mode to the backward mode at the cutoff."""
+    """Energy range of the 3D sector |P|: its lowest mode to the backward mode at the cutoff."""
     u = np.linspace(-1, 1, 65)
     k = np.linspace(0, field.cutoff, 513)[:, None]
     e = shell_energy(model, field, P, k, u[None, :])
@@ -392,8 +644,26 @@ def _band(model: COMModel, field: Field, P: float) -> float:
 
 
 def resolution_notes(scenario, model: COMModel, bath: Bath, t_max: float) -> list[str]:
-    """Warnings about the discretisation: recurrence before t_max, unresolved recoil or packet,
-    a resonance window narrower than the line."""
+    """Warnings about the discretisation of a bath.
+
+    A recurrence before t_max (`recurrence_warning`); an unresolved recoil (k* spanning fewer than
+    RESOLUTION_POINTS lattice spacings or energy shells); in 1D an unresolved packet (sigma_p
+    spanning fewer than RESOLUTION_POINTS sector spacings); a resonance window narrower than
+    WINDOW_LINEWIDTHS golden-rule rates.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    model : COMModel
+    bath : Bath
+    t_max : float
+        Last sample time (time units).
+
+    Returns
+    -------
+    list of str
+        The warnings (possibly none).
+    """
     what = ("the emitted wave returns to the detector (box length L / (1 + v))"
             if bath.dimensions == 1 else "the energy-shell bath rephases (2 pi / shell width)")
     key = "bath.box_length" if bath.dimensions == 1 else "bath.radial_nodes"
@@ -424,8 +694,19 @@ def resolution_notes(scenario, model: COMModel, bath: Bath, t_max: float) -> lis
 
 
 def lamb_sector(scenario, bath: Bath) -> Sector:
-    """The sector at the packet's mean momentum (nearest lattice point in 1D), built like the
-    bath's own sectors."""
+    """The sector at the packet's mean momentum, built like the bath's own sectors.
+
+    1D: at the lattice point nearest p0 (`box_sector`); 3D: at |P| = p0 (`shell_sector`); weight 1.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    bath : Bath
+
+    Returns
+    -------
+    Sector
+    """
     model = model_for(scenario)
     field = field_for(scenario, model)
     if bath.dimensions == 1:
@@ -436,14 +717,26 @@ def lamb_sector(scenario, bath: Bath) -> Sector:
 
 
 def discreteness_correction(scenario, bath: Bath, sector: Sector) -> float:
-    """Part of the discrete principal-value sum sum_k |g_k|^2 / (E_e - eps_k) due to the level's
-    offset from the bath's energy lattice (energy units).
+    """Part of the discrete principal-value sum due to the level's offset from the energy lattice.
 
-    Near an on-shell emission the modes form a locally uniform ladder eps_c + m D; its sum
-    sum_m 1/(delta - m D) = (pi / D) cot(pi delta / D) (delta = E_e - eps_c), which vanishes only
-    when the level sits midway between two modes.  The continuum principal value of a smooth
-    density has no such term, so it is pi J cot(pi delta / D) with J = |g_c|^2 / D, summed over
-    the 1D emission channels.  The 3D shells are built with the level midway: zero there.
+    The discrete sum is sum_k |g_k|^2 / (E_e - eps_k).  Near an on-shell emission the modes form
+    a locally uniform ladder eps_c + m D; its sum sum_m 1/(delta - m D) = (pi / D) cot(pi delta / D)
+    (delta = E_e - eps_c), which vanishes only when the level sits midway between two modes.  The
+    continuum principal value of a smooth density has no such term, so it is
+    pi J cot(pi delta / D) with J = |g_c|^2 / D, summed over the 1D emission channels.  The 3D
+    shells are built with the level midway: zero there.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    bath : Bath
+    sector : Sector
+        A sector of the bath (`lamb_sector`).
+
+    Returns
+    -------
+    float
+        The correction (energy units); 0 in 3D.
     """
     if bath.dimensions == 3:
         return 0.0

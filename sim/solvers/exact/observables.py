@@ -40,8 +40,28 @@ LATTICE_DENSITY_LIMIT = 6001
 
 
 def lattice_density(scenario, bath: Bath, index: np.ndarray, probability: np.ndarray):
-    """Ground-state momentum density (probability / dk per lattice point) on the lattice, or
-    histogrammed onto the perturbative grid when the occupied lattice is too long."""
+    """Ground-state momentum density of the 1D sectors' modes on the momentum lattice.
+
+    Probability / dk per lattice point on the occupied lattice p = j dk, or, when that lattice is
+    longer than LATTICE_DENSITY_LIMIT points, histogrammed onto `axis_grid` (`histogram`).
+
+    Parameters
+    ----------
+    scenario : Scenario
+    bath : Bath
+        The 1D bath (supplies dk = bath.spacing).
+    index : ndarray of int, shape (N,)
+        Lattice index j of each detector momentum p = j dk.
+    probability : ndarray, shape (N, S)
+        Probability at each momentum and snapshot (dimensionless).
+
+    Returns
+    -------
+    grid : ndarray, shape (G,)
+        Momenta (momentum units).
+    density : ndarray, shape (G, S)
+        Density (1 / momentum units).
+    """
     lo, hi = int(index.min()), int(index.max())
     if hi - lo + 1 <= LATTICE_DENSITY_LIMIT:
         grid = np.arange(lo, hi + 1) * bath.spacing
@@ -55,13 +75,45 @@ def lattice_density(scenario, bath: Bath, index: np.ndarray, probability: np.nda
 class ReducedState1D:
     """The reduced COM state of a 1D run on its momentum lattice, at a subset of times.
 
-    Amplitudes a[t, s, n] = sqrt(w_s) c_k(P_s, t) with k = n dk (n offset to the bath's lowest
-    lattice mode) and e[t, s] = sqrt(w_s) c(P_s, t): component n sits at p = P_s - k_n.
+    rho = |phi_e><phi_e| + sum_k |phi_k><phi_k| with phi_e(P) = psi(P) c(P) and
+    phi_k(P - k) = psi(P) c_k(P) on the lattice p = P - k.  The stored amplitudes are
+    a[t, s, n] = sqrt(w_s) c_k(P_s, t) with k = n dk (n offset to the bath's lowest lattice mode)
+    and e[t, s] = sqrt(w_s) c(P_s, t): component n sits at p = P_s - k_n.  The state times are
+    the recoil times thinned so that the array holds at most STATE_ELEMENTS amplitudes, the last
+    recoil time always kept.
+
+    Parameters
+    ----------
+    bath : Bath
+        A 1D bath with sectors on every lattice point (`fits`).
+    recoil : ndarray of int
+        Sample indices of the recoil times.
+
+    Attributes
+    ----------
+    times : ndarray of int
+        Sample indices of the state times.
+    rows : ndarray of int
+        Their positions within `recoil`.
+    level : ndarray, shape (R, sectors)
+        e[t, s] (complex, dimensionless).
+    modes : ndarray, shape (R, sectors, width)
+        a[t, s, n] (complex, dimensionless).
     """
 
     @staticmethod
     def lattice_range(bath: Bath) -> tuple[int, int]:
-        """(lowest lattice mode index, number of lattice modes spanned) over all sectors."""
+        """The lowest lattice mode index over all sectors and the number of lattice modes spanned.
+
+        Parameters
+        ----------
+        bath : Bath
+
+        Returns
+        -------
+        tuple of int
+            (first, width); (0, 1) when no sector has modes.
+        """
         lattice = np.concatenate([sec.lattice for sec in bath.sectors])
         if lattice.size == 0:
             return 0, 1
@@ -69,7 +121,18 @@ class ReducedState1D:
 
     @classmethod
     def fits(cls, bath: Bath) -> bool:
-        """Sectors on every lattice point, and two times of amplitudes within STATE_ELEMENTS."""
+        """Whether the reduced state can be held: sectors on every lattice point, and two times of
+        amplitudes within STATE_ELEMENTS.
+
+        Parameters
+        ----------
+        bath : Bath
+
+        Returns
+        -------
+        bool
+            bath.stride == 1 and 2 x sectors x width <= STATE_ELEMENTS.
+        """
         return bath.stride == 1 and 2 * len(bath.sectors) * cls.lattice_range(bath)[1] <= STATE_ELEMENTS
 
     def __init__(self, bath: Bath, recoil: np.ndarray):
@@ -86,15 +149,40 @@ class ReducedState1D:
         self.level = np.zeros((self.rows.size, sectors), dtype=complex)
 
     def add(self, index: int, sector, level: np.ndarray, modes: np.ndarray) -> None:
-        """Store sector `index`'s level and mode amplitudes at the state times."""
+        """Store sector `index`'s level and mode amplitudes at the state times.
+
+        Parameters
+        ----------
+        index : int
+            Position of the sector in `bath.sectors`.
+        sector : Sector
+            The sector (supplies its weight w_s and mode lattice indices).
+        level : ndarray, shape (R,)
+            c(P_s, t) at the state times (complex, dimensionless).
+        modes : ndarray, shape (R, N)
+            c_k(P_s, t) at the state times (complex, dimensionless).
+
+        Returns
+        -------
+        None
+        """
         root = math.sqrt(sector.weight)
         self.level[:, index] = root * level
         self.modes[:, index, sector.lattice - self.first] = root * modes
 
     def position_variance(self) -> np.ndarray:
-        """Var x of the reduced state (length^2) from the zero-padded lattice Fourier transform
+        """Var x of the reduced state at each state time, from the lattice Fourier transform.
+
         phi(x) = sum_s a_s e^{i P_s x} (|phi(x)|^2 is the same for every mode's shift e^{-i k x}),
-        on the ring of length 2 pi / dk centred on the circular mean position."""
+        zero-padded to POSITION_OVERSAMPLING points per sector, on the ring of length 2 pi / dk
+        centred on the circular mean position; the density is the sum of |phi(x)|^2 over the level
+        and mode components.
+
+        Returns
+        -------
+        ndarray, shape (R,)
+            Var x (length^2, i.e. 1 / momentum^2 units).
+        """
         sectors = self.level.shape[1]
         points = POSITION_OVERSAMPLING * sectors
         density = np.abs(np.fft.ifft(self.level, n=points, axis=1)) ** 2
@@ -113,7 +201,13 @@ class ReducedState1D:
     def purity(self) -> np.ndarray:
         """Tr rho^2 = sum_ab |<phi_a|phi_b>|^2 over the level and mode components (Gram matrix).
 
-        Components n and n + d overlap where P_s - k_n = P_s' - k_(n+d), i.e. s' = s + d.
+        Components n and n + d overlap where P_s - k_n = P_s' - k_(n+d), i.e. s' = s + d; the level
+        component overlaps mode n where P_s - k_n = P_s', i.e. s' = s - n.
+
+        Returns
+        -------
+        ndarray, shape (R,)
+            Tr rho^2 at each state time (dimensionless).
         """
         a, e = self.modes, self.level
         bra = a.conj()
@@ -133,8 +227,16 @@ class ReducedState1D:
         return total
 
     def final_qobj(self):
-        """rho(p, p') at the last state time as a qutip.Qobj on the lattice p = j dk (lowest j
-        first, see `lattice_momenta`), or None when the lattice exceeds FINAL_STATE_LIMIT."""
+        """rho(p, p') at the last state time as a qutip.Qobj on the lattice p = j dk.
+
+        rho = sum_a |phi_a><phi_a| over the components (`component_vectors`), lowest j first.
+
+        Returns
+        -------
+        qutip.Qobj or None
+            The Q x Q density matrix in the lattice basis (probabilities, dimensionless), or None
+            when the lattice exceeds FINAL_STATE_LIMIT points.
+        """
         import qutip
 
         vectors, momenta = self.component_vectors(-1)
@@ -143,8 +245,22 @@ class ReducedState1D:
         return qutip.Qobj(vectors @ vectors.conj().T)
 
     def component_vectors(self, row: int) -> tuple[np.ndarray, np.ndarray]:
-        """(phi matrix: lattice points x components, the lattice momenta) at state time `row`;
-        column 0 is the level's component, column 1 + c the mode n = first + c."""
+        """The components phi_a on the momentum lattice at one state time.
+
+        Column 0 is the level's component, column 1 + c the mode n = first + c.
+
+        Parameters
+        ----------
+        row : int
+            Index into the state times (-1 for the last).
+
+        Returns
+        -------
+        vectors : ndarray, shape (Q, width + 1)
+            phi_a(p) at the lattice points (complex, dimensionless amplitudes).
+        momenta : ndarray, shape (Q,)
+            The lattice momenta p = j dk, increasing (momentum units).
+        """
         sectors, width = self.level.shape[1], self.modes.shape[2]
         lowest = int(self.sector_index[0]) - (self.first + width - 1)
         points = sectors + width - 1
@@ -157,14 +273,30 @@ class ReducedState1D:
 
 
 def axis_density(grid, packet, sector, node_probability) -> np.ndarray:
-    """Density along the packet axis of the detector momentum q = P - k after emission.
+    """Density along the packet axis of the detector momentum q = P - k after emission (3D).
 
     The sector's direction P^ follows the packet's conditional (von Mises-Fisher) law about the
     axis, kappa = |P| |p0| / sigma_p^2, sampled at AXIS_NODES stratified quantiles of
     cos(alpha) = x; the quantum's azimuth about P at AZIMUTH_NODES stratified angles phi:
     q_z = |P| x - k (u x + sqrt(1-u^2) sqrt(1-x^2) cos phi).  The strata are offset per node by
-    a low-discrepancy (golden-ratio) sequence, so that the discrete angles of different nodes do
-    not pile up in the same cells.  node_probability: (nodes, snapshots) probabilities.
+    low-discrepancy additive sequences (the fractional parts of n / golden ratio for x and of
+    n / plastic number for phi), so that the discrete angles of different nodes do not pile up
+    in the same cells.
+
+    Parameters
+    ----------
+    grid : ndarray, shape (G,)
+        Uniform axis-momentum grid (momentum units).
+    packet : Packet
+    sector : Sector
+        A 3D sector (its nodes' mean |k| and u).
+    node_probability : ndarray, shape (nodes, S)
+        Probability of each node at each snapshot (dimensionless).
+
+    Returns
+    -------
+    ndarray, shape (G, S)
+        Density (1 / momentum units).
     """
     nodes = np.arange(sector.quanta.size)[:, None]
     quantile = (np.arange(AXIS_NODES)[None, :] + (nodes * 0.6180339887498949) % 1) / AXIS_NODES

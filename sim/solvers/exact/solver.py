@@ -41,7 +41,18 @@ DENSITY_SMOOTHING = 1.5
 
 
 def unsupported(scenario) -> list[str]:
-    """Scenario keys the single-excitation RWA solver cannot honour (ScenarioError lines)."""
+    """Scenario keys the single-excitation RWA solver cannot honour (ScenarioError lines).
+
+    Parameters
+    ----------
+    scenario : Scenario
+
+    Returns
+    -------
+    list of str
+        One line per problem: field.temperature > 0, packet.internal other than "excited",
+        coupling.rotating_wave = false; empty when the scenario is supported.
+    """
     problems = []
     if scenario.field.temperature > 0:
         problems.append(f"field.temperature = {scenario.field.temperature!r}: method \"exact\" "
@@ -59,7 +70,35 @@ def unsupported(scenario) -> list[str]:
 
 
 class ExactSolver(Solver):
-    """Exact sector-by-sector dynamics in the scenario's truncated bath (module docstring)."""
+    """Exact sector-by-sector dynamics in the scenario's truncated bath.
+
+    In each total-momentum sector P the level E_e(P) couples to the bath modes
+    eps_k = E_g(P - k) + w_k; the secular equation of the star Hamiltonian,
+    f(z) = z - E_e(P) - sum_i b_i / (z - e_i) = 0, gives the amplitudes
+    c(P, t) = sum_j w_j exp(-i z_j t) and c_k(P, t) = conj(g_k) sum_j w_j exp(-i z_j t) /
+    (z_j - e_{i(k)}) with w_j = 1 / f'(z_j), and with w_P the packet's probability of sector P
+
+        P_e(t) = sum_P w_P |c(P, t)|^2,
+        <p^n>  = sum_P w_P [ |c|^2 P^n + sum_k |c_k|^2 (P - k)^n ]       (1D, detector momentum),
+
+    in 3D the same along the packet axis with the packet's conditional direction moments.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    progress : bool, optional
+        Show a progress bar over the sectors (default False).
+
+    Raises
+    ------
+    ScenarioError
+        If the scenario has a thermal field, a ground-state packet or rotating_wave = false
+        (`unsupported`).
+
+    References
+    ----------
+    G. H. Golub, "Some modified matrix eigenvalue problems", SIAM Review 15 (1973) 318.
+    """
 
     name = "exact"
 
@@ -71,12 +110,30 @@ class ExactSolver(Solver):
         self._bath: Bath | None = None
 
     def bath(self) -> Bath:
-        """The truncated bath for this run (built once)."""
+        """The truncated bath for this run (built once, for t_max = the last sample time).
+
+        Returns
+        -------
+        Bath
+            `bath_for(scenario, t_max)`.
+        """
         if self._bath is None:
             self._bath = bath_for(self.scenario, float(sample_times(self.scenario)[-1]))
         return self._bath
 
     def estimate(self) -> Estimate:
+        """Size of the run from its bath.
+
+        memory = 16 bytes x (min(sectors (modes + 1) samples, STATE_ELEMENTS) [1D only] +
+        4 modes samples) + 8 MiB of temporaries; work = 4 samples sum_sectors modes^2.
+
+        Returns
+        -------
+        Estimate
+            states = modes + 1 of the largest sector, memory (bytes), work (floating-point
+            operations), keyed by bath.modes, bath.window, bath.box_length (1D) or bath.radial_nodes
+            (3D), bath.sectors.
+        """
         bath = self.bath()
         samples = self.scenario.run.samples
         modes = bath.mode_count
@@ -88,11 +145,56 @@ class ExactSolver(Solver):
         return Estimate(states=modes + 1, memory_bytes=memory, work=work, keys=keys)
 
     def refined(self) -> "ExactSolver":
-        """The same solver with the bath refined x1.5 (box, cutoff, nodes, sectors, window)."""
+        """The same solver with the bath refined x1.5 (`refined_keys`).
+
+        Cutoff and window (when set) x1.5; 1D: box length x1.5; 3D: radial nodes, angular nodes and
+        sectors x1.5.
+
+        Returns
+        -------
+        ExactSolver
+        """
         return ExactSolver(with_keys(self.scenario, refined_keys(self.bath())),
                            progress=self.progress)
 
     def evolve(self, times):
+        """Exact single-excitation dynamics, sector by sector, at each of `times`.
+
+        Each sector's star spectrum (`star_spectrum`) gives c(P, t) at every time and c_k(P, t) at
+        the recoil times (`recoil_indices`), and
+
+            P_e(t) = sum_P w_P |c(P, t)|^2,
+            <p^n>  = sum_P w_P [ |c|^2 P^n + sum_k |c_k|^2 (P - k)^n ] / norm,
+            norm   = sum_P w_P [ |c|^2 + sum_k |c_k|^2 ],
+
+        in 1D for the detector momentum; in 3D along the packet axis, the quanta's direction
+        relative to P projected with the conditional direction moments <cos a>, <cos^2 a> of the
+        Gaussian packet (`Packet.direction_moments`).  The Lamb shift is `lamb_shift`.
+
+        Parameters
+        ----------
+        times : ndarray
+            Sample times, increasing from 0 (time units).
+
+        Returns
+        -------
+        Evolution
+            P_e(t) (dimensionless) at every time; <p>, Var p (momentum units, momentum^2) at the
+            recoil times, nan between; ground-state momentum densities at the snapshot times
+            (1 / momentum units; 1D on the momentum lattice, 3D on `axis_grid`); in 1D, where the
+            reduced state fits (`ReducedState1D.fits`), x_var (length^2), purity (dimensionless) and
+            the final reduced state; norm over the recoil times; lamb_shift (energy units).
+
+        Raises
+        ------
+        RuntimeError
+            If the secular equation of a sector does not converge (`secular_roots`).
+
+        References
+        ----------
+        G. H. Golub, "Some modified matrix eigenvalue problems", SIAM Review 15 (1973) 318 (the
+        secular equation of the arrowhead Hamiltonian).
+        """
         s = self.scenario
         bath = self.bath()
         snaps = snapshot_indices(len(times))
@@ -149,17 +251,52 @@ def _spectrum(sector, residues: list):
 
 
 def recoil_indices(samples: int, snaps: np.ndarray, bright_counts) -> np.ndarray:
-    """Sample indices where recoil observables are computed: all of them within RECOIL_WORK,
-    else every m-th (first, last and the snapshots always included)."""
+    """Sample indices where recoil observables are computed.
+
+    All of them while samples x sum n^2 (n the bright modes of each sector) is within
+    RECOIL_WORK, else every m-th with m = ceil(samples sum n^2 / RECOIL_WORK); the first, the
+    last and the snapshots are always included.
+
+    Parameters
+    ----------
+    samples : int
+        Number of sample times.
+    snaps : ndarray of int
+        Snapshot indices.
+    bright_counts : iterable of int
+        Number of bright modes (distinct mode energies) of each sector.
+
+    Returns
+    -------
+    ndarray of int
+        Sorted sample indices.
+    """
     work = sum(n * n for n in bright_counts) * samples
     stride = max(1, math.ceil(work / RECOIL_WORK))
     return np.union1d(np.union1d(np.arange(0, samples, stride), snaps), [samples - 1])
 
 
 def lamb_shift(scenario, bath: Bath) -> tuple[float, float]:
-    """(Lamb shift of the sector at the packet's mean momentum, contribution of the modes
-    nearest k = 0) (energy units): the discrete principal-value sum sum |g|^2 / (E_e - eps),
-    less the level's offset from the mode ladder (`sim.bath.discreteness_correction`)."""
+    """Lamb shift of the sector at the packet's mean momentum, and the part of its softest modes.
+
+    Delta = sum_{eps_k != E_e} |g_k|^2 / (E_e - eps_k) - delta_ladder, the discrete
+    principal-value sum (`sector_lamb_shift`) less the level's offset from the mode ladder
+    (`sim.solvers.exact.baths.discreteness_correction`: in 1D sum_c pi |g_c|^2 / D
+    cot(pi (E_e - eps_c) / D) over the emission channels, D the local ladder spacing; 0 in 3D).
+
+    Parameters
+    ----------
+    scenario : Scenario
+    bath : Bath
+
+    Returns
+    -------
+    shift : float
+        Delta (energy units).
+    lowest : float
+        The discrete sum over the modes with the smallest |k| only (energy units); 0 when the
+        sector has no modes.
+    """
     sector = lamb_sector(scenario, bath)
     shift = sector_lamb_shift(sector.level_energy, sector.mode_energies, sector.couplings)
     shift -= discreteness_correction(scenario, bath, sector)

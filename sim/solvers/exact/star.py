@@ -1,35 +1,42 @@
 """Exact single-excitation dynamics of one total-momentum sector.
 
-Under the rotating-wave approximation a sector is a *star*: one level |e> (energy E0) coupled to N
-bath modes |k> (energies eps_k, couplings g_k, complex allowed),
+Under the rotating-wave approximation a sector is a *star*: one level |e> (energy E0) coupled
+to N bath modes |k> (energies eps_k, couplings g_k, complex allowed),
 
     i dc/dt   = E0 c + sum_k g_k c_k
     i dc_k/dt = eps_k c_k + conj(g_k) c,        c(0) = 1,  c_k(0) = 0.
 
-Its Hamiltonian is an arrowhead matrix.  Its eigenvalues z_j are the roots of the secular equation
+Its Hamiltonian is an arrowhead matrix.  Its eigenvalues z_j are the roots of the secular
+equation
 
     f(z) = z - E0 - sum_i b_i / (z - e_i) = 0,                                         (S)
 
-where e_i < e_{i+1} are the distinct energies of the *bright* modes and b_i > 0 their weights (see
-`bright_modes`).  f rises from -inf to +inf between neighbouring poles, so there is exactly one root
-below e_0, one in each gap (e_{i-1}, e_i) and one above e_{M-1}: M + 1 roots for M bright modes.
-The level's weight in eigenstate j is the residue w_j = 1 / f'(z_j), and
+where e_i < e_{i+1} are the distinct energies of the *bright* modes and b_i > 0 their weights
+(see `bright_modes`).  f rises from -inf to +inf between neighbouring poles, so there is exactly
+one root below e_0, one in each gap (e_{i-1}, e_i) and one above e_{M-1}: M + 1 roots for M
+bright modes.  The level's weight in eigenstate j is the residue w_j = 1 / f'(z_j), and
 
     c(t)   = sum_j w_j exp(-i z_j t),
     c_k(t) = conj(g_k) sum_j w_j exp(-i z_j t) / (z_j - e_{i(k)})                       (A)
 
-with i(k) the bright mode containing mode k.  Both are exact for the truncated bath: there is no
-time step.  Each root is stored as (anchor pole energy, offset) with z_j = anchor + offset, the anchor
-being the nearer end of its bracket, so that the small differences z_j - e_i, which carry the
-eigenvectors, are never formed by cancellation (the standard treatment of secular equations in
-divide-and-conquer eigensolvers; common practice).
+with i(k) the bright mode containing mode k.  Both are exact for the truncated bath: there is
+no time step.  Each root is stored as (anchor pole energy, offset) with z_j = anchor + offset,
+the anchor being the nearer end of its bracket, so that the small differences z_j - e_i, which
+carry the eigenvectors, are never formed by cancellation (the standard treatment of secular
+equations in divide-and-conquer eigensolvers; common practice).
 
-Cost: root finding O(M^2) per pass for small M, and for large M O(M^2 n / P) once plus O(M P) per
-pass (near poles direct, far poles interpolated: `PanelledPoleSums`), with O(M) memory (the M x M
-Cauchy matrix is never stored, only blocks of `_BLOCK_ELEMENTS`); O(M x len(times)) for c(t),
-with only O(M sqrt(T)) exponentials on a uniform time grid; O(M^2 x len(times)) for all c_k(t).
+Cost: root finding O(M^2) per pass for small M, and for large M O(M^2 n / P) once plus O(M P)
+per pass (near poles direct, far poles interpolated: `PanelledPoleSums`), with O(M) memory (the
+M x M Cauchy matrix is never stored, only blocks of `_BLOCK_ELEMENTS`); O(M x len(times)) for
+c(t), with only O(M sqrt(T)) exponentials on a uniform time grid; O(M^2 x len(times)) for all
+c_k(t).
 
 Units: hbar = 1; energies in the project's energy unit, times in its inverse.
+
+References: G. H. Golub, "Some modified matrix eigenvalue problems", SIAM Review 15 (1973) 318
+(the secular equation of a diagonal-plus-rank-one matrix); L. N. Trefethen, Approximation
+Theory and Approximation Practice (SIAM 2013), ch. 8 (Chebyshev interpolation of analytic
+functions).
 """
 
 from __future__ import annotations
@@ -57,12 +64,17 @@ class BrightModes:
     """The bath reduced to the modes that couple to the level.
 
     Modes of (nearly) equal energy couple only through their bright combination
-    |B> = sum_{k in B} conj(g_k) |k> / sqrt(b_B), b_B = sum_{k in B} |g_k|^2; the orthogonal (dark)
-    combinations decouple and stay empty.  Modes with g_k = 0 belong to no bright mode.
+    |B> = sum_{k in B} conj(g_k) |k> / sqrt(b_B), b_B = sum_{k in B} |g_k|^2; the orthogonal
+    (dark) combinations decouple and stay empty.  Modes with g_k = 0 belong to no bright mode.
 
-    energies:  e_i, strictly increasing (energy units), the |g|^2-weighted mean of each group.
-    weights:   b_i = sum of |g_k|^2 over the group (energy^2), all > 0.
-    member_of: for each original mode k, the index i of its bright mode, or -1 if g_k = 0.
+    Parameters
+    ----------
+    energies : ndarray, shape (M,)
+        e_i, strictly increasing, the |g|^2-weighted mean energy of each group (energy units).
+    weights : ndarray, shape (M,)
+        b_i = sum of |g_k|^2 over the group, all > 0 (energy^2).
+    member_of : ndarray of int, shape (N,)
+        For each original mode k, the index i of its bright mode, or -1 if g_k = 0.
     """
 
     energies: np.ndarray
@@ -74,9 +86,29 @@ class BrightModes:
 class StarSpectrum:
     """Eigen-decomposition of a star sector, from which c(t) and c_k(t) follow at any times.
 
-    Eigenvalue j is z_j = anchor_energies[j] + offsets[j] (energy units), with anchor_energies[j]
-    the bright-mode energy nearest to z_j within its bracket (E0 itself if no mode couples).
-    residues[j] = w_j = |<e|j>|^2; they sum to 1 up to rounding (`residue_sum`).
+    Eigenvalue j is z_j = anchor_energies[j] + offsets[j], with anchor_energies[j] the
+    bright-mode energy nearest to z_j within its bracket (E0 itself if no mode couples), and
+    residues[j] = w_j = |<e|j>|^2 = 1 / f'(z_j), f the secular function
+    f(z) = z - E0 - sum_i b_i / (z - e_i); the residues sum to 1 up to rounding (`residue_sum`).
+
+    Parameters
+    ----------
+    level_energy : float
+        E0 (energy units).
+    modes : BrightModes
+        The bright modes e_i, b_i and each mode's membership.
+    couplings : ndarray, shape (N,)
+        The original couplings g_k (energy units, complex).
+    anchor_energies : ndarray, shape (M + 1,)
+        Anchor pole energy of each root (energy units).
+    offsets : ndarray, shape (M + 1,)
+        z_j - anchor (energy units).
+    residues : ndarray, shape (M + 1,)
+        w_j (dimensionless).
+
+    References
+    ----------
+    G. H. Golub, "Some modified matrix eigenvalue problems", SIAM Review 15 (1973) 318.
     """
 
     level_energy: float
@@ -88,22 +120,49 @@ class StarSpectrum:
 
     @property
     def eigenvalues(self) -> np.ndarray:
-        """z_j (energy units), in increasing order."""
+        """The eigenvalues z_j = anchor_j + offset_j, in increasing order.
+
+        Returns
+        -------
+        ndarray, shape (M + 1,)
+            z_j (energy units).
+        """
         return self.anchor_energies + self.offsets
 
     @property
     def residue_sum(self) -> float:
-        """sum_j w_j, equal to <e|e> = 1 for an exact decomposition: the norm check."""
+        """sum_j w_j, equal to <e|e> = 1 for an exact decomposition: the norm check.
+
+        Returns
+        -------
+        float
+            sum_j w_j (dimensionless).
+        """
         return float(np.sum(self.residues))
 
     def level_amplitude(self, times) -> np.ndarray:
-        """c(t) = sum_j w_j exp(-i z_j t) at each time (dimensionless, complex), in O(M x T).
+        """c(t) = sum_j w_j exp(-i z_j t) at each time, in O(M x T).
 
         On a uniform grid t_n = t_0 + n dt (any linspace) the phase factorises exactly: with
         n = a B + b, exp(-i z t_n) = exp(-i z (t_0 + a B dt)) exp(-i z b dt), so c on the grid is
         one complex matrix product (A x M) @ (M x B) with A B >= T and B ~ sqrt(T): M (A + B)
         exponentials instead of M T.  Both factors are exact to rounding (no recurrence, no
         growth of the error with n); other time sets are summed directly.
+
+        Parameters
+        ----------
+        times : array_like, shape (T,)
+            Times, any real values and order (time units).
+
+        Returns
+        -------
+        ndarray, shape (T,)
+            c(t) (complex, dimensionless).
+
+        Raises
+        ------
+        ValueError
+            If `times` is not one-dimensional.
         """
         times = _as_times(times)
         grid = _uniform_grid(times)
@@ -131,10 +190,26 @@ class StarSpectrum:
         return amplitude
 
     def mode_amplitudes(self, times) -> np.ndarray:
-        """c_k(t) from equation (A), shape (len(times), N) (dimensionless, complex).
+        """Mode amplitudes c_k(t) = conj(g_k) sum_j w_j exp(-i z_j t) / (z_j - e_{i(k)}).
 
+        This is equation (A), with i(k) the bright mode of mode k; modes with g_k = 0 stay 0.
         Costs O(M^2 x T) time and O(N x T) memory for the result, temporaries bounded: pass only
         the snapshot times you need (e.g. [t_final] for the final recoil distribution).
+
+        Parameters
+        ----------
+        times : array_like, shape (T,)
+            Times (time units).
+
+        Returns
+        -------
+        ndarray, shape (T, N)
+            c_k(t) (complex, dimensionless).
+
+        Raises
+        ------
+        ValueError
+            If `times` is not one-dimensional.
         """
         times = _as_times(times)
         bright = self.bright_mode_amplitudes(times)
@@ -145,9 +220,25 @@ class StarSpectrum:
         return amplitudes
 
     def bright_mode_amplitudes(self, times) -> np.ndarray:
-        """a_i(t) = sum_j w_j exp(-i z_j t) / (z_j - e_i), shape (len(times), M) (energy^-1).
+        """a_i(t) = sum_j w_j exp(-i z_j t) / (z_j - e_i) for every bright mode i.
 
-        Mode k's amplitude is conj(g_k) a_{i(k)}(t); bright mode i's own amplitude is sqrt(b_i) a_i(t).
+        Mode k's amplitude is conj(g_k) a_{i(k)}(t); bright mode i's own amplitude is
+        sqrt(b_i) a_i(t).
+
+        Parameters
+        ----------
+        times : array_like, shape (T,)
+            Times (time units).
+
+        Returns
+        -------
+        ndarray, shape (T, M)
+            a_i(t) (complex, 1 / energy units).
+
+        Raises
+        ------
+        ValueError
+            If `times` is not one-dimensional.
         """
         times = _as_times(times)
         poles, eigenvalues = self.modes.energies, self.eigenvalues
@@ -167,12 +258,40 @@ class StarSpectrum:
 def level_amplitude(level_energy, mode_energies, couplings, times, *, modes=False):
     """Exact amplitude c(t) of the level in a star sector, at each of `times` (1D, any real t).
 
-    level_energy E0 and mode_energies eps_k in energy units, couplings g_k (energy units, complex
-    allowed), times in inverse energy units.  Returns c(t) (complex, shape (T,)); with modes=True
-    returns (c(t), c_k(t)) with c_k of shape (T, N), from equation (A) of the module docstring.
-
+    c(t) = sum_j w_j exp(-i z_j t) over the roots z_j of the secular equation
+    f(z) = z - E0 - sum_i b_i / (z - e_i) = 0, w_j = 1 / f'(z_j); with modes=True also
+    c_k(t) = conj(g_k) sum_j w_j exp(-i z_j t) / (z_j - e_{i(k)}) (equation (A)).
     c_k(t) at all times costs O(N^2 T); for recoil observables at a few snapshot times build the
     decomposition once with `star_spectrum` and call its `mode_amplitudes(snapshot_times)`.
+
+    Parameters
+    ----------
+    level_energy : float
+        E0 (energy units).
+    mode_energies : array_like, shape (N,)
+        eps_k (energy units).
+    couplings : array_like, shape (N,)
+        g_k (energy units, complex allowed).
+    times : array_like, shape (T,)
+        Times (time units).
+    modes : bool, optional
+        Also return the mode amplitudes (default False).
+
+    Returns
+    -------
+    ndarray or tuple of ndarray
+        c(t), complex, shape (T,) (dimensionless); with modes=True (c(t), c_k(t)) with c_k of
+        shape (T, N) (dimensionless).
+
+    Raises
+    ------
+    ValueError
+        If the energies and couplings are not finite 1D arrays of equal length, or `times` is
+        not one-dimensional.
+
+    References
+    ----------
+    G. H. Golub, "Some modified matrix eigenvalue problems", SIAM Review 15 (1973) 318.
     """
     spectrum = star_spectrum(level_energy, mode_energies, couplings)
     amplitude = spectrum.level_amplitude(times)
@@ -182,12 +301,41 @@ def level_amplitude(level_energy, mode_energies, couplings, times, *, modes=Fals
 
 
 def star_spectrum(level_energy, mode_energies, couplings, *, merge_rtol=MERGE_RTOL) -> StarSpectrum:
-    """Eigen-decomposition of the star sector by the secular equation (S) (module docstring).
+    """Eigen-decomposition of the star sector by the secular equation (S).
 
-    Degenerate modes are merged first (`bright_modes`, relative tolerance merge_rtol).  Energies and
-    couplings in energy units.  Each root is converged to 4 ulp of its offset from its anchor pole
-    (or to the rounding level of f itself where that is larger); `residue_sum` reports the norm
-    check sum_j w_j = 1.
+    The roots z_j of f(z) = z - E0 - sum_i b_i / (z - e_i) = 0 over the bright modes (e_i, b_i)
+    and their residues w_j = 1 / f'(z_j).  Degenerate modes are merged first (`bright_modes`,
+    relative tolerance merge_rtol).  Each root is converged to 4 ulp of its offset from its anchor
+    pole (or to the rounding level of f itself where that is larger); `residue_sum` reports the
+    norm check sum_j w_j = 1.
+
+    Parameters
+    ----------
+    level_energy : float
+        E0 (energy units).
+    mode_energies : array_like, shape (N,)
+        eps_k (energy units).
+    couplings : array_like, shape (N,)
+        g_k (energy units, complex allowed).
+    merge_rtol : float, optional
+        Relative degeneracy tolerance (dimensionless, default MERGE_RTOL).
+
+    Returns
+    -------
+    StarSpectrum
+
+    Raises
+    ------
+    ValueError
+        If the energies and couplings are not finite 1D arrays of equal length.
+    RuntimeError
+        If a root does not converge in _MAX_STEPS iterations (`secular_roots`).
+
+    References
+    ----------
+    G. H. Golub, "Some modified matrix eigenvalue problems", SIAM Review 15 (1973) 318.
+    Safeguarded root finding of secular equations as in divide-and-conquer eigensolvers: common
+    practice.
     """
     energies, couplings = _as_bath(mode_energies, couplings)
     level_energy = float(level_energy)
@@ -199,12 +347,30 @@ def star_spectrum(level_energy, mode_energies, couplings, *, merge_rtol=MERGE_RT
 def bright_modes(mode_energies, couplings, *, rtol=MERGE_RTOL) -> BrightModes:
     """Merge (nearly) degenerate modes into bright modes; drop modes with zero coupling.
 
-    Sorted energies form one group while consecutive gaps are <= rtol * max(max|eps_k|, g_bath), with
-    g_bath = sqrt(sum_k |g_k|^2) the level's total coupling (so a group may span several
-    such gaps).  A group acts as a single mode of energy sum |g_k|^2 eps_k / b and
-    coupling sqrt(b), b = sum |g_k|^2 (the dark combinations decouple).  The replacement of each member's
-    energy by the group mean shifts c_k(t) by at most ~ (energy spread of the group) x t; with the
-    default rtol this is rounding-level for any physical run.
+    Sorted energies form one group while consecutive gaps are <= rtol * max(max|eps_k|, g_bath),
+    with g_bath = sqrt(sum_k |g_k|^2) the level's total coupling (so a group may span several
+    such gaps).  A group acts as a single mode of energy sum |g_k|^2 eps_k / b and coupling
+    sqrt(b), b = sum |g_k|^2 (the dark combinations decouple).  The replacement of each member's
+    energy by the group mean shifts c_k(t) by at most ~ (energy spread of the group) x t; with
+    the default rtol this is rounding-level for any physical run.
+
+    Parameters
+    ----------
+    mode_energies : array_like, shape (N,)
+        eps_k (energy units).
+    couplings : array_like, shape (N,)
+        g_k (energy units, complex allowed).
+    rtol : float, optional
+        Relative tolerance (dimensionless, default MERGE_RTOL).
+
+    Returns
+    -------
+    BrightModes
+
+    Raises
+    ------
+    ValueError
+        If the energies and couplings are not finite 1D arrays of equal length.
     """
     energies, couplings = _as_bath(mode_energies, couplings)
     strengths = np.abs(couplings) ** 2
@@ -224,17 +390,43 @@ def bright_modes(mode_energies, couplings, *, rtol=MERGE_RTOL) -> BrightModes:
 def secular_roots(level_energy, pole_energies, pole_weights):
     """All M + 1 roots of f(z) = z - E0 - sum_i b_i/(z - e_i) and their residues w = 1/f'(z).
 
-    pole_energies e_i strictly increasing, pole_weights b_i > 0 (energy^2), level_energy E0.
-    Returns (anchor_energies, offsets, residues): root j is z_j = anchor + offset, anchored at the
-    nearer end of its bracket (the outer roots at e_0 and e_{M-1}).
+    Root j is z_j = anchor + offset, anchored at the nearer end of its bracket (the outer roots
+    at e_0 and e_{M-1}).  All brackets are solved at once by a safeguarded Newton-type iteration
+    (`_local_model_step`) in the offset variable, with bisection whenever a step would leave the
+    bracket.  The interior roots start at the bracket midpoint, where the sign of f picks the
+    anchor; the outer roots start at the eigenvalue bounds min(E0, e_0) - sqrt(sum b) and
+    max(E0, e_{M-1}) + sqrt(sum b) (Weyl's inequality for the diagonal plus the coupling part,
+    whose norm is sqrt(sum b)).  The sums over the other poles come from `pole_sums_for`
+    (direct, or near poles direct and far ones from Chebyshev interpolants for large M).
 
-    All brackets are solved at once by a safeguarded Newton-type iteration (`_local_model_step`) in
-    the offset variable, with bisection whenever a step would leave the bracket.  The interior roots
-    start at the bracket midpoint, where the sign of f picks the anchor; the outer roots start at
-    the eigenvalue bounds min(E0, e_0) - sqrt(sum b) and max(E0, e_{M-1}) + sqrt(sum b) (Weyl's
-    inequality for the diagonal plus the coupling part, whose norm is sqrt(sum b)).  The sums over
-    the other poles come from `pole_sums_for` (direct, or near poles direct and far ones from
-    Chebyshev interpolants for large M).
+    Parameters
+    ----------
+    level_energy : float
+        E0 (energy units).
+    pole_energies : array_like, shape (M,)
+        e_i, strictly increasing (energy units).
+    pole_weights : array_like, shape (M,)
+        b_i > 0 (energy^2).
+
+    Returns
+    -------
+    anchor_energies : ndarray, shape (M + 1,)
+        Anchor pole energy of each root (energy units); [E0] when M = 0.
+    offsets : ndarray, shape (M + 1,)
+        z_j - anchor (energy units).
+    residues : ndarray, shape (M + 1,)
+        w_j = 1 / f'(z_j) (dimensionless).
+
+    Raises
+    ------
+    RuntimeError
+        If some roots have not converged after _MAX_STEPS iterations.
+
+    References
+    ----------
+    G. H. Golub, "Some modified matrix eigenvalue problems", SIAM Review 15 (1973) 318 (the
+    secular equation).  Safeguarded root finding as in divide-and-conquer eigensolvers: common
+    practice.
     """
     level_energy = float(level_energy)
     poles = np.asarray(pole_energies, dtype=float)
@@ -274,6 +466,25 @@ def sector_lamb_shift(level_energy, mode_energies, couplings) -> float:
     The discrete principal value: modes with eps_k exactly equal to E0 are left out.  It is the
     second-order energy shift of the level in the truncated bath (Rayleigh-Schroedinger
     perturbation theory; common practice).
+
+    Parameters
+    ----------
+    level_energy : float
+        E0 (energy units).
+    mode_energies : array_like, shape (N,)
+        eps_k (energy units).
+    couplings : array_like, shape (N,)
+        g_k (energy units, complex allowed).
+
+    Returns
+    -------
+    float
+        Delta (energy units).
+
+    Raises
+    ------
+    ValueError
+        If the energies and couplings are not finite 1D arrays of equal length.
     """
     energies, couplings = _as_bath(mode_energies, couplings)
     detuning = float(level_energy) - energies
@@ -287,9 +498,9 @@ def sector_lamb_shift(level_energy, mode_energies, couplings) -> float:
 def _initial_brackets(level_energy, poles, weights):
     """Anchor index, starting offset, far bracket end, and bracket [low, high] for each root.
 
-    Offsets are z - poles[anchor].  Interior root j (between poles j-1 and j) starts at the midpoint,
-    anchored at pole j-1, far end at the gap; the outer roots start at the Weyl bound.  The factor
-    1.01 keeps the starting point outside the root despite rounding.
+    Offsets are z - poles[anchor].  Interior root j (between poles j-1 and j) starts at the
+    midpoint, anchored at pole j-1, far end at the gap; the outer roots start at the Weyl bound.
+    The factor 1.01 keeps the starting point outside the root despite rounding.
     """
     gaps = np.diff(poles)
     reach = 1.01 * np.sqrt(np.sum(weights))
@@ -337,7 +548,8 @@ def _secular_terms(level_energy, poles, weights, anchor, offset, others):
 def _pole_sums(anchor, offset, poles, weights):
     """sum_{i != anchor} b_i/(z - e_i) and sum_{i != anchor} b_i/(z - e_i)^2, z = e_anchor + offset.
 
-    Evaluated in row blocks of the Cauchy matrix: O(roots x poles) time, O(_BLOCK_ELEMENTS) memory.
+    Evaluated in row blocks of the Cauchy matrix: O(roots x poles) time, O(_BLOCK_ELEMENTS)
+    memory.
     """
     first = np.empty(offset.size)
     second = np.empty(offset.size)
@@ -350,11 +562,25 @@ def _pole_sums(anchor, offset, poles, weights):
 
 
 def pole_sums_for(poles, weights):
-    """Evaluator (roots, anchor, offset) -> (sum_{i != anchor} b_i/(z - e_i),
-    sum_{i != anchor} b_i/(z - e_i)^2) at z = poles[anchor] + offset for the roots of
-    `secular_roots` (root j lies in the bracket (e_{j-1}, e_j)).
+    """Evaluator of the pole sums of `secular_roots` for these poles.
 
-    Below _PANEL_MIN_POLES poles every sum is direct (`_pole_sums`); above, `PanelledPoleSums`.
+    The evaluator maps (roots, anchor, offset) to (sum_{i != anchor} b_i/(z - e_i),
+    sum_{i != anchor} b_i/(z - e_i)^2) at z = poles[anchor] + offset, for the roots of
+    `secular_roots` (root j lies in the bracket (e_{j-1}, e_j)).  Below _PANEL_MIN_POLES poles
+    every sum is direct (`_pole_sums`); above, `PanelledPoleSums`.
+
+    Parameters
+    ----------
+    poles : ndarray, shape (M,)
+        e_i, strictly increasing (energy units).
+    weights : ndarray, shape (M,)
+        b_i > 0 (energy^2).
+
+    Returns
+    -------
+    callable
+        (roots, anchor, offset) -> (first, second): first in energy units, second dimensionless,
+        each of the shape of `offset`.
     """
     if poles.size < _PANEL_MIN_POLES:
         return lambda roots, anchor, offset: _pole_sums(anchor, offset, poles, weights)
@@ -367,17 +593,28 @@ class PanelledPoleSums:
     The interior roots are grouped in panels of consecutive brackets; panel p spans the interval
     I_p = [c - h, c + h] between its outer bracket ends.  Poles within _NEAR_REACH x h = 2h of
     I_p are *near* and summed directly (the anchor left out) at every evaluation; the others are
-    at least 3h from c, so phi(z) = sum_far b_i/(z - e_i) and its companion sum_far
-    b_i/(z - e_i)^2 are analytic inside the Bernstein ellipse rho = 3 + sqrt(8) of I_p and are
-    replaced by their Chebyshev interpolants on _CHEBYSHEV_NODES first-kind nodes, built once
-    from direct sums at the nodes.  The coefficients fall off like rho^-n (Trefethen,
-    Approximation Theory and Approximation Practice, ch. 8): the interpolation error, ~ rho^-n
-    times the sum of |b_i/(z - e_i)| (the scale of the direct sum's own rounding), is far below
-    rounding (measured: roots and residues agree with the direct sums to ~3e-15 relative).  The
-    outer two roots are summed directly.
+    at least 3h from c, so phi(z) = sum_far b_i/(z - e_i) and its companion
+    sum_far b_i/(z - e_i)^2 are analytic inside the Bernstein ellipse rho = 3 + sqrt(8) of I_p
+    and are replaced by their Chebyshev interpolants on _CHEBYSHEV_NODES first-kind nodes, built
+    once from direct sums at the nodes.  The coefficients fall off like rho^-n: the interpolation
+    error, ~ rho^-n times the sum of |b_i/(z - e_i)| (the scale of the direct sum's own
+    rounding), is far below rounding (measured: roots and residues agree with the direct sums to
+    ~3e-15 relative).  The outer two roots are summed directly.
 
     Work: O(M^2 n / P) once plus O(M P) per iteration (panel size P ~ 2 sqrt(M)), instead of
     O(M^2) per iteration.
+
+    Parameters
+    ----------
+    poles : ndarray, shape (M,)
+        e_i, strictly increasing (energy units).
+    weights : ndarray, shape (M,)
+        b_i > 0 (energy^2).
+
+    References
+    ----------
+    L. N. Trefethen, Approximation Theory and Approximation Practice (SIAM 2013), ch. 8
+    (Chebyshev interpolation error of a function analytic in a Bernstein ellipse).
     """
 
     def __init__(self, poles, weights):
@@ -395,6 +632,24 @@ class PanelledPoleSums:
             for centre, half, a, b in zip(self.centre, self.half, self.near_lo, self.near_hi)])
 
     def __call__(self, roots, anchor, offset):
+        """The two pole sums at z = poles[anchor] + offset, the anchor pole left out.
+
+        Parameters
+        ----------
+        roots : ndarray of int, shape (R,)
+            Root indices j = 0 .. M (0 and M are the outer roots, summed directly).
+        anchor : ndarray of int, shape (R,)
+            Index of each root's anchor pole.
+        offset : ndarray, shape (R,)
+            z - poles[anchor] (energy units).
+
+        Returns
+        -------
+        first : ndarray, shape (R,)
+            sum_{i != anchor} b_i / (z - e_i) (energy units).
+        second : ndarray, shape (R,)
+            sum_{i != anchor} b_i / (z - e_i)^2 (dimensionless).
+        """
         first, second = np.empty(roots.size), np.empty(roots.size)
         interior = (roots > 0) & (roots < self.poles.size)
         outer = ~interior
@@ -421,9 +676,13 @@ class PanelledPoleSums:
 
 
 def _far_sum_coefficients(poles, weights, centre, half, far):
-    """Chebyshev coefficients, shape (_CHEBYSHEV_NODES, 2), of sum_far b_i/(z - e_i) and
-    sum_far b_i/(z - e_i)^2 on [centre - half, centre + half], interpolated at the first-kind
-    nodes x_m = cos(pi (m + 1/2) / n): c_k = (2 - [k = 0]) / n sum_m T_k(x_m) f(x_m)."""
+    """Chebyshev coefficients, shape (_CHEBYSHEV_NODES, 2), of the two far-pole sums.
+
+    sum_far b_i/(z - e_i) and sum_far b_i/(z - e_i)^2 on [centre - half, centre + half],
+    interpolated at the first-kind nodes x_m = cos(pi (m + 1/2) / n):
+    c_k = (2 - [k = 0]) / n sum_m T_k(x_m) f(x_m) (Trefethen, Approximation Theory and
+    Approximation Practice, ch. 8).
+    """
     nodes = np.cos(np.pi * (np.arange(_CHEBYSHEV_NODES) + 0.5) / _CHEBYSHEV_NODES)
     cauchy = _cauchy_block(centre + half * nodes, np.zeros(nodes.size), poles[far])
     values = np.stack([cauchy @ weights[far], np.square(cauchy) @ weights[far]], axis=1)
@@ -436,9 +695,10 @@ def _far_sum_coefficients(poles, weights, centre, half, far):
 def _local_model_step(offset, value, slope_rest, anchor_weight, far_end):
     """Correction u to the offset x from a local model of f matching f and f' at x.
 
-    Model: f(x + u) ~ f + b/x - b/(x + u) + s u / (1 - r u), with b the anchor weight, s = slope_rest
-    and r = 1/(far_end - x): the anchor pole exactly, everything else as one pole at the far bracket
-    end (r = 0, a straight line, for the outer brackets).  Its root is the small root of
+    Model: f(x + u) ~ f + b/x - b/(x + u) + s u / (1 - r u), with b the anchor weight,
+    s = slope_rest and r = 1/(far_end - x): the anchor pole exactly, everything else as one pole
+    at the far bracket end (r = 0, a straight line, for the outer brackets).  Its root is the
+    small root of
         [s - r (f + b/x)] u^2 + [f (1 - r x) + f' x] u + f x = 0,     f' = s + b/x^2,
     which reduces to Newton's step on x f(x) as the curvature term vanishes.
     """

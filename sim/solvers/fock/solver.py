@@ -1,44 +1,50 @@
 """`method = "fock"`: a few field modes in a truncated Fock space, with or without the RWA.
 
-The full monopole Hamiltonian H_I = lambda (sigma+ + sigma-) (x) Int d^dk F(k) / sqrt((2 pi)^d 2 w_k)
-[a_k e^{ik.X} V + h.c.] on a bath of M discrete modes k_j,
+The full monopole Hamiltonian
+H_I = lambda (sigma+ + sigma-) (x) Int d^dk F(k) / sqrt((2 pi)^d 2 w_k) [a_k e^{ik.X} V + h.c.]
+on a bath of M discrete modes k_j,
 
     H = E_g(P_com) |g><g| + E_e(P_com) |e><e| + sum_j w_j a_j^dag a_j
         + (sigma+ + sigma-) (x) sum_j c sqrt(mu_j) [a_j e^{i k_j.X} V + h.c.],
 
-with c = model.coupling_factor() (lambda, or lambda_2 for `one-particle`), V(p_e, p_g) the model's
-vertex, w_j = sqrt(k_j^2 + m^2) and mu_j = F(k_j)^2 / ((2 pi)^d 2 w_j) x (measure of mode j), so that
-sum_j mu_j f(k_j) approximates Int d^dk F^2 / ((2 pi)^d 2 w) f(k).  Every term conserves the total
-momentum P = p + sum_j n_j k_j, so one sector is spanned by {|level, n_1..n_M>} with the COM momentum
-fixed, p = P - sum_j n_j k_j.  A link adds (or removes) one quantum of mode j and flips the level;
-its matrix element is
+with c = model.coupling_factor() (lambda, or lambda_2 for `one-particle`), V(p_e, p_g) the
+model's vertex, w_j = sqrt(k_j^2 + m^2) and mu_j = F(k_j)^2 / ((2 pi)^d 2 w_j) x (measure of
+mode j), so that sum_j mu_j f(k_j) approximates Int d^dk F^2 / ((2 pi)^d 2 w) f(k).  Every term
+conserves the total momentum P = p + sum_j n_j k_j, so one sector is spanned by
+{|level, n_1..n_M>} with the COM momentum fixed, p = P - sum_j n_j k_j.  A link adds (or
+removes) one quantum of mode j and flips the level; its matrix element is
 
     <other, n + 1_j| H |level, n> = c V(p_e, p_g) sqrt(mu_j) sqrt(n_j + 1).
 
-Truncation: n_j <= max_occupation, sum_j n_j <= max_quanta.  Only reachable states are kept: with
-all terms, the parity (level + sum n) mod 2 is conserved, so the level is fixed by the number of
-quanta; under the RWA the excitation number level + sum n is conserved.  Within each rule every
-state of the truncated space is reachable from |level0, vac> (quanta can be added one at a time).
+Truncation: n_j <= max_occupation, sum_j n_j <= max_quanta.  Only reachable states are kept:
+with all terms, the parity (level + sum n) mod 2 is conserved, so the level is fixed by the
+number of quanta; under the RWA the excitation number level + sum n is conserved.  Within each
+rule every state of the truncated space is reachable from |level0, vac> (quanta can be added one
+at a time).
 
 Baths:
-- 1D: the exact solver's periodic box (`sim.solvers.exact.baths.box_sector`): k = 2 pi n / L, |k| <= cutoff
-  (n = 0 only for a massive field), mu = F^2 / (L 2 w): Int dk / 2 pi -> (1/L) sum.  When the box
-  holds more modes than `bath.fock_modes`, the modes kept are the most strongly coupled to the first
-  transition out of the initial state, ranked by |g_j|^2 / (D_j^2 + (2 pi / L)^2) with D_j its
-  energy mismatch (the weight of mode j in second-order perturbation theory, regularised by the
-  mode spacing).
-- 3D: 6 directions (the octahedron +-e1, +-e2, +-e3 with e3 the packet axis: a spherical 3-design,
-  weight 4 pi / 6 each; common practice) times R = ceil(fock_modes / 6) Gauss-Legendre nodes in |k|
-  on [0, cutoff] with weights W_r k_r^2.  A crude few-mode bath: it models, it does not converge to,
-  the 3D continuum.
+- 1D: the exact solver's periodic box (`sim.solvers.exact.baths.box_sector`): k = 2 pi n / L,
+  |k| <= cutoff (n = 0 only for a massive field), mu = F^2 / (L 2 w): Int dk / 2 pi ->
+  (1/L) sum.  When the box holds more modes than `bath.fock_modes`, the modes kept are the most
+  strongly coupled to the first transition out of the initial state, ranked by
+  |g_j|^2 / (D_j^2 + (2 pi / L)^2) with D_j its energy mismatch (the weight of mode j in
+  second-order perturbation theory, regularised by the mode spacing).
+- 3D: 6 directions (the octahedron +-e1, +-e2, +-e3 with e3 the packet axis: a spherical
+  3-design, weight 4 pi / 6 each; common practice) times R = ceil(fock_modes / 6)
+  Gauss-Legendre nodes in |k| on [0, cutoff] with weights W_r k_r^2.  A crude few-mode bath: it
+  models, it does not converge to, the 3D continuum.
 
-Packet: one sector per packet momentum P with weight |psi(P)|^2.  1D: the exact solver's lattice
-sectors (`sim.solvers.exact.baths.sector_lattice`), thinned to at most `bath.sectors` (default
-MAX_DEFAULT_SECTORS); 3D: `bath.sectors` (default 3) Gauss-Hermite nodes of the axial marginal
-(`Packet.quadrature(along_axis=True)`), on the axis (the transverse spread of the packet is neglected).  Each sector is evolved from |level0, P; vac> by
-qutip.sesolve; all observables are diagonal in the basis and are read off |psi|^2.
+Packet: one sector per packet momentum P with weight |psi(P)|^2.  1D: the exact solver's
+lattice sectors (`sim.solvers.exact.baths.sector_lattice`), thinned to at most `bath.sectors`
+(default MAX_DEFAULT_SECTORS); 3D: `bath.sectors` (default 3) Gauss-Hermite nodes of the axial
+marginal (`Packet.quadrature(along_axis=True)`), on the axis (the transverse spread of the
+packet is neglected).  Each sector is evolved from |level0, P; vac> by qutip.sesolve; all
+observables are diagonal in the basis and are read off |psi|^2.
 
 Units: hbar = c = 1; energies and momenta in the energy unit, times and lengths in its inverse.
+
+References: the QuTiP 5 documentation (sesolve); Abramowitz & Stegun, Handbook of Mathematical
+Functions, ch. 25 (Gauss-Legendre and Gauss-Hermite quadratures).
 """
 
 from __future__ import annotations
@@ -114,7 +120,25 @@ SIZE_KEYS = ("bath.max_quanta", "bath.fock_modes", "bath.max_occupation")
 
 @dataclass(frozen=True)
 class SectorRun:
-    """Observables of one sector over time (arrays over times) and ground probabilities per bin."""
+    """Observables of one sector over time (arrays over times) and ground probabilities per bin.
+
+    Parameters
+    ----------
+    excited : ndarray, shape (T,)
+        Excited-state population (dimensionless).
+    norm : ndarray, shape (T,)
+        Total probability |psi|^2 summed (dimensionless).
+    quanta : ndarray, shape (T,)
+        Mean number of field quanta (dimensionless).
+    p_axis : ndarray, shape (T,)
+        <p> along the packet axis (momentum units).
+    p_axis_sq : ndarray, shape (T,)
+        <p^2> along the packet axis (momentum^2).
+    edge : ndarray, shape (T,)
+        Probability on the truncation edge (`truncation_edge`; dimensionless).
+    ground_bins : ndarray, shape (T, G)
+        Ground-state probability in each cell of the axis-momentum grid (dimensionless).
+    """
 
     excited: np.ndarray
     norm: np.ndarray
@@ -129,7 +153,31 @@ def evolve_sector(model, plan: FockPlan, basis: FockBasis, total_momentum, times
                   progress: bool = False) -> SectorRun:
     """Evolve |level0, P; vac> by qutip.sesolve and read the diagonal observables off |psi|^2.
 
-    Ground-state probabilities are summed in the bins of the axis-momentum `grid`.
+    i d psi/dt = H psi with H the sector Hamiltonian (`sector_hamiltonian`); every observable is
+    diagonal in the Fock basis, so <O>(t) = sum_s O_s |psi_s(t)|^2.  Ground-state probabilities
+    are summed in the cells of the axis-momentum `grid` (`bin_index`).
+
+    Parameters
+    ----------
+    model : COMModel
+    plan : FockPlan
+    basis : FockBasis
+    total_momentum : ndarray, shape (d,)
+        P of the sector (momentum units).
+    times : ndarray, shape (T,)
+        Sample times (time units).
+    grid : ndarray, shape (G,)
+        Axis-momentum grid (momentum units, `momentum_grid`).
+    progress : bool, optional
+        Show sesolve's progress bar.
+
+    Returns
+    -------
+    SectorRun
+
+    References
+    ----------
+    The QuTiP 5 documentation: sesolve.
     """
     hamiltonian = sector_hamiltonian(model, plan, basis, total_momentum)
     p_axis = com_momenta(basis, plan.modes, total_momentum) @ plan.axis
@@ -152,17 +200,57 @@ def evolve_sector(model, plan: FockPlan, basis: FockBasis, total_momentum, times
 
 
 class FockSolver(Solver):
-    """Truncated Fock space of a few field modes, total-momentum sectors (module docstring)."""
+    """Truncated Fock space of a few field modes, in total-momentum sectors.
+
+    H = E_g(p) |g><g| + E_e(p) |e><e| + sum_j w_j a_j^dag a_j
+    + (sigma+ + sigma-) (x) sum_j c sqrt(mu_j) [a_j e^{i k_j.X} V + h.c.] in each sector of total
+    momentum P = p + sum_j n_j k_j, truncated to n_j <= max_occupation and sum_j n_j <= max_quanta,
+    with or without the counter-rotating terms; each sector is evolved by qutip.sesolve.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    progress : bool, optional
+        Show sesolve's progress bar (default False).
+
+    References
+    ----------
+    The QuTiP 5 documentation: sesolve.
+    """
 
     name = "fock"
 
     @cached_property
     def model(self):
+        """The scenario's centre-of-mass model (built once).
+
+        Returns
+        -------
+        COMModel
+        """
         return model_for(self.scenario)
 
     @cached_property
     def plan(self) -> FockPlan:
-        """Modes, sectors and cutoffs, defaults chosen from the scenario (module docstring)."""
+        """Modes, sectors and cutoffs, defaults chosen from the scenario (built once).
+
+        1D: a box of length bath.box_length or `fock_box_length`, sectors from
+        `sector_grid_1d`, the bath.fock_modes (default DEFAULT_FOCK_MODES_1D) box modes most
+        strongly coupled at the most probable sector (`lattice_modes`).  3D: `octahedral_modes`
+        with ceil(fock_modes / 6) (default DEFAULT_RADIAL_NODES_3D) radial nodes, bath.sectors
+        (default DEFAULT_SECTORS_3D) axial Gauss-Hermite sectors.  max_quanta =
+        bath.max_quanta, default 1 under the RWA and DEFAULT_MAX_QUANTA otherwise;
+        max_occupation = bath.max_occupation, default max_quanta.
+
+        Returns
+        -------
+        FockPlan
+
+        Raises
+        ------
+        ScenarioError
+            If field.temperature > 0 (the method starts from the field vacuum).
+        """
         s, model = self.scenario, self.model
         if s.field.temperature > 0:
             raise ScenarioError(f"field.temperature = {s.field.temperature!r}: method \"fock\" "
@@ -188,7 +276,22 @@ class FockSolver(Solver):
                         bath.max_occupation or max_quanta, max_quanta)
 
     def estimate(self) -> Estimate:
-        """States of one sector (exact count), memory of its Hamiltonian and ODE, rough flops."""
+        """States of one sector (exact count), memory of its Hamiltonian and ODE, rough flops.
+
+        With S = `state_count(plan)` and M modes: entries = S (2 M + 1),
+        memory = entries BYTES_PER_ENTRY + S (BYTES_PER_STATE + M),
+        work = 8 x 20 entries x max(t_max max_quanta max_j w_j, 1) x sectors.
+
+        Returns
+        -------
+        Estimate
+            Keyed by SIZE_KEYS.
+
+        Raises
+        ------
+        ScenarioError
+            If field.temperature > 0 (`plan`).
+        """
         plan = self.plan
         states = state_count(plan)
         entries = states * (2 * plan.modes.count + 1)
@@ -199,8 +302,13 @@ class FockSolver(Solver):
         return Estimate(states=states, memory_bytes=float(memory), work=work, keys=SIZE_KEYS)
 
     def refined(self) -> "FockSolver | None":
-        """The same bath with max_quanta and max_occupation raised by one; None under the RWA,
-        whose excitation-number sector is complete (nothing is truncated)."""
+        """The same bath with max_quanta and max_occupation raised by one.
+
+        Returns
+        -------
+        FockSolver or None
+            None under the RWA, whose excitation-number sector is complete (nothing is truncated).
+        """
         plan = self.plan
         if plan.rotating_wave:
             return None
@@ -209,6 +317,41 @@ class FockSolver(Solver):
         return FockSolver(finer, progress=self.progress)
 
     def evolve(self, times):
+        """Evolve every packet sector in its truncated Fock space and combine them.
+
+        With w_P the sector weights, <O>(t) = sum_P w_P <O>_P(t) for P_e, the mean number of quanta,
+        <p> and <p^2> along the axis (`evolve_sector`).  Without the RWA the table
+        "counter_rotating" compares P_e with the rotating-wave star on the same modes and with
+        second-order perturbation theory (`_references`).  The Lamb shift is
+        sum_P w_P (Delta_e - Delta_g)(P) (`transition_shift`).
+
+        Parameters
+        ----------
+        times : ndarray
+            Sample times, increasing from 0 (time units).
+
+        Returns
+        -------
+        Evolution
+            P_e(t), norm (dimensionless); <p>, Var p along the axis (momentum units, momentum^2);
+            ground-state densities at the snapshot times and the initial density (1 / momentum
+            units); lamb_shift (energy units); the table "field" (t, mean quanta) and, without the
+            RWA, "counter_rotating".  No x variance or purity.
+
+        Raises
+        ------
+        ResourceError
+            If one sector would hold more than MAX_SECTOR_STATES states.
+        ScenarioError
+            If field.temperature > 0.
+
+        References
+        ----------
+        The QuTiP 5 documentation: sesolve.
+        J. J. Sakurai, Modern Quantum Mechanics, sec. 5.6 (the second-order reference).
+        G. H. Golub, "Some modified matrix eigenvalue problems", SIAM Review 15 (1973) 318 (the
+        rotating-wave star reference).
+        """
         model, plan = self.model, self.plan
         estimate = self.estimate()
         if estimate.states > MAX_SECTOR_STATES:
@@ -247,7 +390,8 @@ class FockSolver(Solver):
                      "truncation_edge_max": float(np.max(total("edge")))})
 
     def _references(self, times, excited) -> dict:
-        """P_e of the RWA star on the same modes and sectors, and second-order perturbation theory."""
+        """P_e of the RWA star on the same modes and sectors, and of second-order perturbation
+        theory."""
         model, plan = self.model, self.plan
         pairs = list(zip(plan.sector_weights, plan.sector_momenta))
         leaving = sum(w * second_order_transition(model, plan.modes, P, plan.start_level, times)
@@ -281,9 +425,22 @@ class FockSolver(Solver):
 
 
 def fock_box_length(scenario, model) -> float:
-    """L = BOX_MARGIN (1 + v) t_max, v the fastest recoil speed (`emitted_speed`): the
-    emitted wave returns just after t_max (length units).  Shorter than the exact solver's
-    default box, which also resolves the packet: a Fock bath holds only a few modes."""
+    """Default 1D box length L = BOX_MARGIN (1 + v) t_max.
+
+    v is the fastest recoil speed (`emitted_speed`), so the emitted wave returns just after t_max.
+    Shorter than the exact solver's default box, which also resolves the packet: a Fock bath holds
+    only a few modes.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    model : COMModel
+
+    Returns
+    -------
+    float
+        L (length units).
+    """
     t_max = float(sample_times(scenario)[-1])
     return returning_box_length(t_max, emitted_speed(model, scenario), BOX_MARGIN)
 
@@ -293,6 +450,18 @@ def momentum_grid(plan: FockPlan, basis: FockBasis):
 
     1D: the box lattice itself (every reachable momentum is a lattice point, one bin each);
     3D: MOMENTUM_BINS_3D uniform bins over the reachable range.
+
+    Parameters
+    ----------
+    plan : FockPlan
+    basis : FockBasis
+
+    Returns
+    -------
+    grid : ndarray
+        Axis momenta (momentum units).
+    step : float
+        Grid spacing (momentum units).
     """
     kicks = basis.occupations @ (plan.modes.momenta @ plan.axis)
     along = plan.sector_momenta @ plan.axis

@@ -67,14 +67,35 @@ SOLVER_OPTIONS = {"method": "adams", "atol": 1e-12, "rtol": 1e-10, "nsteps": 1_0
 def direction_channels(model, field, process, P: float, cos_alpha: float) -> list[Channel]:
     """On-shell quanta of a 3D detector at momentum |P| along a direction n at angle alpha to P.
 
-    Roots k > 0 of E_A(|P|) - E_B(q) - s w_k with q = |P - s k n| = sqrt(P^2 + k^2 - 2 s P k cos a);
-    `rate` is the golden-rule rate per solid angle of n (inverse time per steradian),
+    Roots k > 0 of E_A(|P|) - E_B(q) - s w_k with q = |P - s k n| = sqrt(P^2 + k^2 - 2 s P k cos a)
+    (s = +1 emission, -1 absorption); `rate` is the golden-rule rate per solid angle of n,
 
         dGamma/dOmega = 2 pi k^2 |g(k)|^2 N(w_k) / |d mismatch/dk|,
         d mismatch/dk = -v_B(q) (k - s P cos a) / q - s k / w_k,
 
     and `kick` = -s k is the recoil along n (q_vec - P = -s k n).  Integrated over all directions
     it is `sim.physics.golden_rule.kick_moments(...).rate` (tested).
+
+    Parameters
+    ----------
+    model : COMModel
+    field : Field
+    process : Process
+        EMISSION or ABSORPTION (initial level A, final level B, sign s).
+    P : float
+        |P| (momentum units).
+    cos_alpha : float
+        cos of the angle between n and P (dimensionless).
+
+    Returns
+    -------
+    list of Channel
+        kick (momentum units, along n), rate (1 / time units per steradian), quantum k
+        (momentum units).
+
+    References
+    ----------
+    J. J. Sakurai, Modern Quantum Mechanics, sec. 5.6 (the golden-rule transition rate).
     """
     s = process.sign
     e_initial = float(model.energy(process.initial, P))
@@ -97,7 +118,17 @@ def direction_channels(model, field, process, P: float, cos_alpha: float) -> lis
 
 @dataclass(frozen=True)
 class Direction:
-    """One emission direction of the 3D quadrature: n = (sin t cos phi, sin t sin phi, cos t)."""
+    """One emission direction of the 3D quadrature: n = (sin t cos phi, sin t sin phi, cos t).
+
+    Parameters
+    ----------
+    polar : float
+        cos(theta) about the packet axis (dimensionless).
+    azimuth : float
+        phi, with the detector's transverse momentum along phi = 0 (radians).
+    weight : float
+        Solid angle it stands for, mirror pair included (steradians).
+    """
 
     polar: float  # cos(theta) about the packet axis
     azimuth: float  # phi, with the detector's transverse momentum along phi = 0
@@ -105,7 +136,27 @@ class Direction:
 
 
 def direction_quadrature(polar_nodes: int, azimuth_nodes: int = AZIMUTHAL_DIRECTIONS):
-    """Gauss-Legendre in cos(theta) x midpoint in phi on [0, pi]; weights sum to 4 pi."""
+    """Emission directions: Gauss-Legendre in cos(theta) x midpoint rule in phi on [0, pi].
+
+    Each phi node phi_j = (j + 1/2) pi / azimuth_nodes stands for the mirror pair +-phi, so its
+    weight is w_i 2 pi / azimuth_nodes; the weights sum to 4 pi.
+
+    Parameters
+    ----------
+    polar_nodes : int
+        Gauss-Legendre nodes in cos(theta).
+    azimuth_nodes : int, optional
+        Midpoint nodes in phi (default AZIMUTHAL_DIRECTIONS).
+
+    Returns
+    -------
+    tuple of Direction
+        polar_nodes x azimuth_nodes directions (weights in steradians).
+
+    References
+    ----------
+    Abramowitz & Stegun, Handbook of Mathematical Functions, ch. 25 (Gauss-Legendre quadrature).
+    """
     u, w = gauss_legendre(polar_nodes)
     phis = (np.arange(azimuth_nodes) + 0.5) * np.pi / azimuth_nodes
     return tuple(Direction(float(a), float(phi), float(b * 2 * np.pi / azimuth_nodes))
@@ -115,7 +166,21 @@ def direction_quadrature(polar_nodes: int, azimuth_nodes: int = AZIMUTHAL_DIRECT
 def lattice_shares(kick: float, step: float) -> list[tuple[int, float]]:
     """Hat-function split of a kick onto lattice shifts: [(m, 1 - f), (m + 1, f)], kick/dp = m + f.
 
-    Conserves probability and mean kick; a kick within SNAP of a lattice shift stays whole.
+    Conserves probability and mean kick, and adds the variance f (1 - f) dp^2 <= dp^2 / 4; a
+    kick within SNAP of a lattice shift stays whole.
+
+    Parameters
+    ----------
+    kick : float
+        The axial recoil kick (momentum units).
+    step : float
+        Lattice step dp (momentum units).
+
+    Returns
+    -------
+    list of tuple
+        (shift m in lattice steps (int), share (dimensionless)); one or two entries, shares
+        summing to 1.
     """
     x = kick / step
     m = math.floor(x)
@@ -134,7 +199,26 @@ def lattice_shares(kick: float, step: float) -> list[tuple[int, float]]:
 
 @dataclass(frozen=True)
 class MarkovGrid:
-    """Momentum lattice p_n = origin + n step (axial), packet window n = 0 .. points - 1."""
+    """Momentum lattice p_n = origin + n step (axial), packet window n = 0 .. points - 1.
+
+    Parameters
+    ----------
+    origin : float
+        p_0, the lattice momentum of index 0 (momentum units).
+    step : float
+        Lattice step dp (momentum units).
+    points : int
+        Lattice points of the packet window.
+    span : float
+        Packet widths sigma_p each side covered by the window (dimensionless).
+    transverse : tuple
+        ((rho_b, weight), ...): transverse momentum magnitudes (momentum units) and weights
+        (dimensionless); ((0, 1),) in 1D.
+    directions : tuple of Direction
+        The 3D emission-direction quadrature; () in 1D.
+    generations : int
+        Largest number of jumps the closure follows.
+    """
 
     origin: float
     step: float
@@ -145,19 +229,71 @@ class MarkovGrid:
     generations: int  # largest number of jumps the closure follows
 
     def momentum(self, n):
-        """Axial momentum of lattice index n."""
+        """Axial momentum of lattice index n.
+
+        Parameters
+        ----------
+        n : int or array_like of int
+            Lattice indices.
+
+        Returns
+        -------
+        ndarray or float
+            origin + n step (momentum units).
+        """
         return self.origin + np.asarray(n) * self.step
 
 
 def window_size(g) -> tuple[float, int]:
-    """(span in sigma_p each side, points) of the packet window: [grid] keys or the defaults."""
+    """(span in sigma_p each side, points) of the packet window: [grid] keys or the defaults.
+
+    Parameters
+    ----------
+    g : GridConfig
+        The scenario's [grid] table (`scenario.grid`: span, points).
+
+    Returns
+    -------
+    span : float
+        grid.span, default WINDOW_WIDTHS (dimensionless, in sigma_p).
+    points : int
+        grid.points, default 2 ceil(span STEPS_PER_WIDTH) + 1.
+    """
     span = g.span if g.span is not None else WINDOW_WIDTHS
     points = g.points if g.points is not None else 2 * math.ceil(span * STEPS_PER_WIDTH) + 1
     return span, points
 
 
 def grid_for(scenario, times) -> MarkovGrid:
-    """The lattice from the [grid] keys or the automatic defaults (see module docstring)."""
+    """The lattice from the [grid] keys or the automatic defaults.
+
+    step = 2 span sigma_p / (points - 1), origin = p0 - span sigma_p (`window_size`).  1D: no
+    transverse nodes, two emission directions; 3D: TRANSVERSE_NODES Gauss-Laguerre nodes of the
+    transverse momentum (`Packet.transverse_quadrature`) and `direction_quadrature` with
+    grid.directions (default POLAR_DIRECTIONS) polar nodes.  Closure depth: 2 generations in the
+    vacuum (emission, then nothing); in a thermal field ceil(J + 4 sqrt(J) + 3) with
+    J = EXPECTED_JUMPS_FACTOR (Gamma_down + Gamma_up)(p0) t_max the expected number of jumps.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    times : ndarray
+        Sample times (time units); t_max = times[-1].
+
+    Returns
+    -------
+    MarkovGrid
+
+    Raises
+    ------
+    ScenarioError
+        If grid.directions is given and is not 2 for a 1D field.
+
+    References
+    ----------
+    Abramowitz & Stegun, Handbook of Mathematical Functions, ch. 25 (Gauss-Laguerre and
+    Gauss-Legendre quadratures).
+    """
     g = scenario.grid
     packet = packet_for(scenario)
     sigma = packet.momentum_std
@@ -185,7 +321,28 @@ def grid_for(scenario, times) -> MarkovGrid:
 
 @dataclass
 class Sector:
-    """States |level, n> of one transverse node and their generator pieces."""
+    """States |level, n> of one transverse node and their generator pieces.
+
+    Parameters
+    ----------
+    rho : float
+        Transverse momentum magnitude rho_b of the node (momentum units).
+    weight : float
+        Its quadrature weight (dimensionless).
+    levels : ndarray of int
+        Level of each state (GROUND or EXCITED).
+    index : ndarray of int
+        Lattice index n of each state.
+    energies : ndarray
+        E_level(sqrt(p_n^2 + rho^2)) - M_g of each state (energy units).
+    families : dict
+        (process sign, channel label, shift) -> (targets, sources, amplitudes sqrt(rate)), the
+        entries of one jump operator (amplitudes in sqrt(1 / time units)).
+    edge : ndarray of bool
+        States whose jumps were cut.
+    quadrature_error : float, optional
+        3D: largest relative error of the direction quadrature's rate (dimensionless).
+    """
 
     rho: float
     weight: float
@@ -198,13 +355,36 @@ class Sector:
 
     @property
     def size(self) -> int:
+        """Number of states of the sector.
+
+        Returns
+        -------
+        int
+        """
         return len(self.levels)
 
     def hamiltonian(self) -> qutip.Qobj:
+        """H = sum_s E_s |s><s|, diagonal in the lattice states (no Lamb shift).
+
+        Returns
+        -------
+        qutip.Qobj
+            Sparse (CSR) operator (energy units).
+        """
         return qutip.Qobj(sparse.diags(self.energies, format="csr"))
 
     def jump_operators(self) -> tuple[list[qutip.Qobj], list[tuple]]:
-        """The Lindblad operators L_{c,m} (CSR) and their family labels."""
+        """The Lindblad operators L_{c,m} (CSR) and their family labels.
+
+        L_{c,m} = sum_p sqrt(gamma_{c,m}(p)) |B, p + m dp><A, p|, one per family.
+
+        Returns
+        -------
+        ops : list of qutip.Qobj
+            The jump operators (sqrt(1 / time units)).
+        labels : list of tuple
+            (process sign, channel label, shift m) of each operator.
+        """
         ops, labels = [], []
         n = self.size
         for label, (targets, sources, amps) in self.families.items():
@@ -213,14 +393,53 @@ class Sector:
         return ops, labels
 
     def liouvillian(self) -> qutip.Qobj:
-        """The Lindblad generator as one sparse superoperator (one product per ODE step)."""
+        """The Lindblad generator as one sparse superoperator (one product per ODE step).
+
+        L rho = -i [H, rho] + sum_J (L_J rho L_J^dag - {L_J^dag L_J, rho} / 2), built by
+        `qutip.liouvillian`.
+
+        Returns
+        -------
+        qutip.Qobj
+            Superoperator (1 / time units).
+
+        References
+        ----------
+        H.-P. Breuer & F. Petruccione, The Theory of Open Quantum Systems (OUP 2002), ch. 3.
+        The QuTiP 5 documentation: liouvillian, mesolve.
+        """
         ops, _ = self.jump_operators()
         return qutip.liouvillian(self.hamiltonian(), ops)
 
     def diagonal(self, values) -> qutip.Qobj:
+        """A diagonal operator with `values` on the sector's states (an observable).
+
+        Parameters
+        ----------
+        values : array_like, shape (size,)
+            Diagonal entries (any units; kept).
+
+        Returns
+        -------
+        qutip.Qobj
+            Sparse (CSR) diagonal operator.
+        """
         return qutip.Qobj(sparse.diags(np.asarray(values, dtype=float), format="csr"))
 
     def initial_ket(self, amplitudes: dict) -> qutip.Qobj:
+        """The sector's ket with the given amplitudes on its states.
+
+        Parameters
+        ----------
+        amplitudes : dict
+            (level, lattice index n) -> amplitude (dimensionless), e.g. `packet_amplitudes`; every
+            key must be a state of the sector.
+
+        Returns
+        -------
+        qutip.Qobj
+            Ket of shape (size, 1).
+        """
         psi = np.zeros(self.size, dtype=complex)
         lookup = {(int(l), int(n)): i for i, (l, n) in enumerate(zip(self.levels, self.index))}
         for key, value in amplitudes.items():
@@ -250,7 +469,31 @@ def _channels(model, field, process, grid: MarkovGrid, rho: float, n: int):
 
 def build_sector(model, field, grid: MarkovGrid, rho: float, weight: float,
                  start_level: int) -> Sector:
-    """Breadth-first closure of the packet window under the jumps, up to grid.generations."""
+    """Breadth-first closure of the packet window under the jumps, up to grid.generations.
+
+    Starts from |start_level, n>, n = 0 .. points - 1; each generation adds the targets of the
+    frontier's jumps (at most MAX_STATES states).  Each channel's kick is split onto lattice
+    shifts by `lattice_shares`; in 3D the direction quadrature's rates are rescaled so that their
+    sum is the exact golden-rule rate (`kick_moments`).  Ground states have no jumps in the
+    vacuum.
+
+    Parameters
+    ----------
+    model : COMModel
+    field : Field
+    grid : MarkovGrid
+    rho : float
+        Transverse momentum magnitude of the node (momentum units; 0 in 1D).
+    weight : float
+        Its quadrature weight (dimensionless).
+    start_level : int
+        Level of the packet window (GROUND or EXCITED).
+
+    Returns
+    -------
+    Sector
+        States ordered by lattice index, then level.
+    """
     thermal = field.temperature > 0
 
     quadrature_error = [0.0]
@@ -309,7 +552,20 @@ def build_sector(model, field, grid: MarkovGrid, rho: float, weight: float,
 
 
 def packet_amplitudes(scenario, grid: MarkovGrid, level: int) -> dict:
-    """sqrt(|psi(p_n)|^2 dp) of the axial packet on the window, normalised on the lattice."""
+    """sqrt(|psi(p_n)|^2 dp) of the axial packet on the window, normalised on the lattice.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    grid : MarkovGrid
+    level : int
+        Internal level of the packet.
+
+    Returns
+    -------
+    dict
+        (level, n) -> real amplitude (dimensionless), with sum of squares 1.
+    """
     n = np.arange(grid.points)
     density = packet_for(scenario).axis_density(grid.momentum(n))
     amps = np.sqrt(density / density.sum())

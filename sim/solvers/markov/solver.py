@@ -25,7 +25,8 @@ so L^dag L = Sum_p gamma |A,p><A,p| is diagonal: every lattice momentum decays a
 golden-rule rate, and in the vacuum P_e(t) = Sum_p |psi(p)|^2 exp(-Gamma(p) t).
 
 Ground-state coherences are fed only through a common lattice shift, as if both branches emitted
-the same quantum (which is how the exact single-excitation state carries them: one c_k(P) per mode k):
+the same quantum (which is how the exact single-excitation state carries them: one c_k(P) per
+mode k):
 
     d rho_g(p + m dp, p' + m dp)/dt  gets  Sum_c sqrt(gamma_{c,m}(p) gamma_{c,m}(p')) rho_e(p, p');
 
@@ -48,8 +49,11 @@ where the rates are then taken at the pre-kick transverse momentum.  The per-axi
 along the axis is therefore right (k*^2/3 per quantum in the static limit); the 3D purity and the
 position variance are not computed (nan).
 
-Solved with QuTiP 5 `mesolve` (sparse CSR operators); trajectories (`[run] trajectories`) unravel the
-same generator with `mcsolve` (`trajectories`).
+Solved with QuTiP 5 `mesolve` (sparse CSR operators); trajectories (`[run] trajectories`)
+unravel the same generator with `mcsolve` (`trajectories`).
+
+References: H.-P. Breuer & F. Petruccione, The Theory of Open Quantum Systems (OUP 2002), ch. 3
+(Lindblad form, Born-Markov-secular derivation); the QuTiP 5 documentation (mesolve, mcsolve).
 """
 
 from __future__ import annotations
@@ -85,7 +89,27 @@ from .trajectories import unravel
 
 @dataclass
 class SectorRun:
-    """Time series of one sector (arrays over the sample times) and its ground snapshots."""
+    """Time series of one sector (arrays over the sample times) and its ground snapshots.
+
+    Parameters
+    ----------
+    excited : ndarray, shape (T,)
+        Excited-state population (dimensionless).
+    p1 : ndarray, shape (T,)
+        <p_z>, axial momentum mean (momentum units).
+    p2 : ndarray, shape (T,)
+        <p_z^2> (momentum^2).
+    trace : ndarray, shape (T,)
+        Tr rho, the total probability (dimensionless).
+    edge : ndarray, shape (T,)
+        Population on the states whose jumps were cut (dimensionless).
+    purity : ndarray, shape (T,)
+        Tr rho_COM^2 (`com_purity`; dimensionless), or nan when not computed.
+    ground : list of ndarray, optional
+        Ground-state lattice probabilities (dimensionless) at each snapshot time.
+    final_state : qutip.Qobj, optional
+        The density matrix at the last sample time.
+    """
 
     excited: np.ndarray
     p1: np.ndarray
@@ -98,7 +122,23 @@ class SectorRun:
 
 
 def com_purity(sector: Sector, rho: np.ndarray) -> float:
-    """Tr rho_COM^2 of the COM state reduced over the internal levels (rho_COM = rho_ee + rho_gg)."""
+    """Tr rho_COM^2 of the COM state reduced over the internal levels.
+
+    rho_COM(p, p') = rho_ee(p, p') + rho_gg(p, p') on the lattice (the e-g coherences drop out of
+    the partial trace), and Tr rho_COM^2 = sum_pp' |rho_COM(p, p')|^2 for a Hermitian rho_COM.
+
+    Parameters
+    ----------
+    sector : Sector
+        Supplies each state's level and lattice index.
+    rho : ndarray, shape (n, n)
+        The sector's density matrix in its state basis (complex, dimensionless).
+
+    Returns
+    -------
+    float
+        Tr rho_COM^2 (dimensionless).
+    """
     lattice = sector.index - sector.index.min()
     size = int(lattice.max()) + 1
     com = np.zeros((size, size), dtype=complex)
@@ -110,7 +150,36 @@ def com_purity(sector: Sector, rho: np.ndarray) -> float:
 
 def evolve_sector(sector: Sector, grid: MarkovGrid, psi0: qutip.Qobj, times: np.ndarray,
                   snaps: np.ndarray, purity: bool) -> SectorRun:
-    """mesolve of one sector, segment by segment between snapshot times."""
+    """Lindblad evolution of one sector by qutip.mesolve, segment by segment between snapshots.
+
+    d rho/dt = -i [H, rho] + sum_J (L_J rho L_J^dag - {L_J^dag L_J, rho} / 2) with the
+    sector's diagonal H and jump operators (`Sector.liouvillian`); the expectation values of the
+    excited projector, p_z, p_z^2, the cut-edge projector, the trace and (optionally) the COM
+    purity are recorded at every sample time, and the ground-state lattice probabilities at each
+    snapshot time.
+
+    Parameters
+    ----------
+    sector : Sector
+    grid : MarkovGrid
+    psi0 : qutip.Qobj
+        Initial ket of the sector (`Sector.initial_ket`).
+    times : ndarray, shape (T,)
+        Sample times (time units).
+    snaps : ndarray of int
+        Snapshot indices into `times`, first and last included.
+    purity : bool
+        Record Tr rho_COM^2 (`com_purity`).
+
+    Returns
+    -------
+    SectorRun
+
+    References
+    ----------
+    The QuTiP 5 documentation: mesolve.
+    H.-P. Breuer & F. Petruccione, The Theory of Open Quantum Systems (OUP 2002), ch. 3.
+    """
     generator = sector.liouvillian()
     pz = grid.momentum(sector.index)
     e_ops = [sector.diagonal(sector.levels == EXCITED), sector.diagonal(pz),
@@ -135,12 +204,48 @@ def evolve_sector(sector: Sector, grid: MarkovGrid, psi0: qutip.Qobj, times: np.
 
 
 class MarkovSolver(Solver):
-    """Lindblad master equation on a momentum lattice (see module docstring)."""
+    """Born-Markov-secular Lindblad master equation on a momentum lattice.
+
+    d rho/dt = -i [H, rho] + sum_J (L_J rho L_J^dag - {L_J^dag L_J, rho} / 2), with
+    H = sum_p E_e(p) |e,p><e,p| + E_g(p) |g,p><g,p| (no Lamb shift) and, for each on-shell
+    channel c and lattice shift m, L_{c,m} = sum_p sqrt(gamma_{c,m}(p)) |B, p + m dp><A, p|,
+    gamma_{c,m}(p) = Gamma_c(p) max(0, 1 - |kick_c(p) / dp - m|), Gamma_c the golden-rule rate
+    of the channel.  3D: the axial momentum on the lattice, the transverse momentum as a mixture
+    over Gauss-Laguerre nodes of its magnitude.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    progress : bool, optional
+        Accepted for a uniform interface (default False).
+
+    References
+    ----------
+    H.-P. Breuer & F. Petruccione, The Theory of Open Quantum Systems (OUP 2002), ch. 3.
+    The QuTiP 5 documentation: mesolve, mcsolve.
+    """
 
     name = "markov"
 
     def setup(self, times):
-        """(model, field, grid, sectors) for the scenario and sample times."""
+        """The model, field, lattice and sectors for the scenario and sample times.
+
+        Parameters
+        ----------
+        times : ndarray
+            Sample times (time units); the last one sets the thermal closure depth.
+
+        Returns
+        -------
+        tuple
+            (model, field, grid, sectors): the COMModel, the Field, the MarkovGrid and one Sector
+            per transverse node (one in 1D).
+
+        Raises
+        ------
+        ScenarioError
+            If grid.directions is given and is not 2 in 1D (`grid_for`).
+        """
         s = self.scenario
         model, field = model_for(s), field_for(s)
         grid = grid_for(s, times)
@@ -149,6 +254,37 @@ class MarkovSolver(Solver):
         return model, field, grid, sectors
 
     def evolve(self, times):
+        """Solve the Lindblad master equation of every sector and combine them.
+
+        Each transverse sector b (weight W_b; one in 1D) is evolved by mesolve (`evolve_sector`) and
+        the observables are the weighted sums P_e = sum_b W_b P_e,b, <p_z^n> = sum_b W_b <p_z^n>_b,
+        Var p = <p_z^2> - <p_z>^2.  With run.trajectories > 0 the same generator is unravelled into
+        quantum trajectories (`unravel`), recorded in the table "emissions".
+
+        Parameters
+        ----------
+        times : ndarray
+            Sample times, increasing from 0 (time units).
+
+        Returns
+        -------
+        Evolution
+            P_e(t) (dimensionless); <p>, Var p along the axis (momentum units, momentum^2);
+            ground-state densities at the snapshot times and the initial density on the lattice
+            (1 / momentum units); norm = Tr rho (dimensionless); in 1D the COM purity and the final
+            density matrix.  No x variance and no Lamb shift.
+
+        Raises
+        ------
+        ScenarioError
+            If grid.directions is given and is not 2 in 1D.
+
+        References
+        ----------
+        H.-P. Breuer & F. Petruccione, The Theory of Open Quantum Systems (OUP 2002), ch. 3.
+        J. Dalibard, Y. Castin & K. Molmer, Phys. Rev. Lett. 68, 580 (1992) (trajectories).
+        The QuTiP 5 documentation: mesolve, mcsolve.
+        """
         s = self.scenario
         model, field, grid, sectors = self.setup(times)
         start = level_of(s.packet.internal)
@@ -188,6 +324,21 @@ class MarkovSolver(Solver):
         return evo
 
     def warnings(self, model, grid, edge_population) -> list[str]:
+        """Warnings of the run: the closure cut, and the secular generator's dropped terms.
+
+        Parameters
+        ----------
+        model : COMModel
+        grid : MarkovGrid
+        edge_population : ndarray
+            Population on the cut states over time (dimensionless).
+
+        Returns
+        -------
+        list of str
+            A warning when the largest edge population exceeds EDGE_TOLERANCE, and one when
+            coupling.rotating_wave = false (only energy-conserving jumps are kept).
+        """
         s = self.scenario
         out = []
         worst = float(np.max(edge_population))
@@ -201,6 +352,20 @@ class MarkovSolver(Solver):
         return out
 
     def details(self, grid, sectors) -> dict:
+        """Facts of the discretisation for summary.json.
+
+        Parameters
+        ----------
+        grid : MarkovGrid
+        sectors : list of Sector
+
+        Returns
+        -------
+        dict
+            grid_step (momentum units), grid_points, grid_span (sigma_p each side), directions,
+            transverse_nodes, generations, states and jump_operators per sector, the direction
+            quadrature's largest relative rate error (dimensionless), and two descriptive strings.
+        """
         return {"grid_step": grid.step, "grid_points": grid.points, "grid_span": grid.span,
                 "directions": len(grid.directions) or 2,
                 "transverse_nodes": len(grid.transverse), "generations": grid.generations,
@@ -212,8 +377,15 @@ class MarkovSolver(Solver):
                               "conserved; extra variance <= step^2/4 per jump)"}
 
     def refined(self):
-        """Half the lattice step over the same span, twice the polar directions in 3D; the
-        refined run skips the trajectories (the master equation is what is being refined)."""
+        """The same solver on a finer lattice.
+
+        Half the lattice step over the same span (2 points - 1), twice the polar directions in 3D;
+        the refined run skips the trajectories (the master equation is what is being refined).
+
+        Returns
+        -------
+        MarkovSolver
+        """
         s = self.scenario
         span, points = window_size(s.grid)
         directions = 2 * (s.grid.directions or POLAR_DIRECTIONS) if s.dimensions == 3 else None

@@ -3,12 +3,15 @@
 Each trajectory evolves a state vector under H_eff = H - (i/2) Sum_J L_J^dag L_J and jumps with
 L_J at the rate <L_J^dag L_J> (QuTiP 5 `mcsolve`); the average over trajectories converges to the
 master-equation solution with the statistical error sqrt(P (1 - P) / N) of a fraction.  A jump of
-an emission family L_{c,m} (see sim.solvers.markov) is one emitted quantum; its recoil kick along
-the packet axis is the lattice shift m dp.  In 3D every trajectory first draws its transverse
-momentum node with the node weights, then runs in that sector.
+an emission family L_{c,m} = Sum_p sqrt(gamma_{c,m}(p)) |g, p + m dp><e, p| is one emitted
+quantum; its recoil kick along the packet axis is the lattice shift m dp.  In 3D every trajectory
+first draws its transverse momentum node with the node weights, then runs in that sector.
 
 Output: the `emissions` table {trajectory, t, kick} (one row per emission), drawn as
 trajectories.png by `sim.plotting`.
+
+References: J. Dalibard, Y. Castin & K. Molmer, Phys. Rev. Lett. 68, 580 (1992) (the Monte Carlo
+wave-function method); the QuTiP 5 documentation (mcsolve).
 """
 
 from __future__ import annotations
@@ -22,7 +25,36 @@ from .lattice import SOLVER_OPTIONS
 
 
 def unravel(sectors, grid, amplitudes, times, count: int, seed: int | None) -> TrajectoryRecord:
-    """`count` trajectories of the sectors' generator from the packet state `amplitudes`."""
+    """`count` trajectories of the sectors' generator from the packet state `amplitudes`.
+
+    The trajectories are shared among the sectors by a multinomial draw with the sectors'
+    weights; each sector runs its share with qutip.mcsolve (H, the sector's jump operators, one
+    seed from `numpy.random.SeedSequence(seed)` per sector).  Every jump of an emission family
+    (process sign +1) is recorded with its time and its kick m dp.
+
+    Parameters
+    ----------
+    sectors : list of Sector
+    grid : MarkovGrid
+    amplitudes : dict
+        (level, n) -> initial amplitude (`packet_amplitudes`).
+    times : ndarray
+        Sample times (time units).
+    count : int
+        Number of trajectories.
+    seed : int or None
+        Seed of the draws (None: fresh entropy).
+
+    Returns
+    -------
+    TrajectoryRecord
+        The emissions table: trajectory (index), t (time units), kick (momentum units).
+
+    References
+    ----------
+    J. Dalibard, Y. Castin & K. Molmer, Phys. Rev. Lett. 68, 580 (1992).
+    The QuTiP 5 documentation: mcsolve.
+    """
     rng = np.random.default_rng(seed)
     weights = np.array([sec.weight for sec in sectors])
     per_sector = rng.multinomial(count, weights / weights.sum())

@@ -8,11 +8,11 @@ the rates after a transition neglected:
 
 so in the vacuum P_e(t) = Int |psi(P)|^2 exp(-Gamma(P) t) d^dP.  The expected numbers of
 transitions N(P, t) = Int_0^t Gamma P_level dt' weight the golden-rule recoil moments
-(`sim.physics.golden_rule.kick_moments`) to give the momentum mean and variance along the packet axis.
-Snapshots of the ground-state momentum density: in 1D each emission channel maps the packet
-density through P -> P + kick(P) exactly; in 3D the packet's axis marginal is convolved with a
-uniform kick of the same variance (exact in the static limit: isotropic emission of |k| = k*
-makes each Cartesian kick component uniform on [-k*, k*]).
+(`sim.physics.golden_rule.kick_moments`) to give the momentum mean and variance along the
+packet axis.  Snapshots of the ground-state momentum density: in 1D each emission channel maps
+the packet density through P -> P + kick(P) exactly; in 3D the packet's axis marginal is
+convolved with a uniform kick of the same variance (exact in the static limit: isotropic
+emission of |k| = k* makes each Cartesian kick component uniform on [-k*, k*]).
 """
 
 from __future__ import annotations
@@ -33,7 +33,39 @@ PACKET_NODES_3D = 64
 
 
 def two_level_populations(up, down, excited_start: bool, t):
-    """P_e(t) and the time integral Int_0^t P_e dt' of the rate equation (arrays over P x t)."""
+    """P_e(t) and its time integral for the two-level rate equation of each packet momentum.
+
+    With Gamma = Gamma_up + Gamma_down and P_eq = Gamma_up / Gamma (0 where Gamma = 0):
+
+        P_e(t)             = P_eq + (P_e(0) - P_eq) exp(-Gamma t),
+        Int_0^t P_e dt'    = P_eq t + (P_e(0) - P_eq) (1 - exp(-Gamma t)) / Gamma,
+
+    the last factor taken as t where Gamma = 0.
+
+    Parameters
+    ----------
+    up : ndarray, shape (N,)
+        Absorption rates Gamma_up(P) (1 / time units).
+    down : ndarray, shape (N,)
+        Emission rates Gamma_down(P) (1 / time units).
+    excited_start : bool
+        P_e(0) = 1 if True, else 0.
+    t : ndarray, shape (T,)
+        Times (time units).
+
+    Returns
+    -------
+    excited : ndarray, shape (N, T)
+        P_e(P, t) (dimensionless).
+    integral : ndarray, shape (N, T)
+        Int_0^t P_e(P, t') dt' (time units).
+
+    References
+    ----------
+    H.-P. Breuer & F. Petruccione, The Theory of Open Quantum Systems (OUP 2002), ch. 3: the
+    populations of the Born-Markov-secular master equation of a two-level system obey these
+    rate equations.
+    """
     total = (up + down)[:, None]
     eq = np.divide(up[:, None], total, out=np.zeros_like(total), where=total > 0)
     start = 1.0 if excited_start else 0.0
@@ -46,23 +78,66 @@ def two_level_populations(up, down, excited_start: bool, t):
 
 
 class PerturbativeSolver(Solver):
-    """Golden-rule rate equations per packet momentum (see module docstring)."""
+    """Golden-rule rate equations per packet momentum.
+
+    Each packet momentum P relaxes by its own two-level rate equation,
+    P_e(P, t) = P_eq + (P_e(0) - P_eq) exp(-(Gamma_up + Gamma_down) t), P_eq = Gamma_up / (sum),
+    with the golden-rule rates Gamma_down(P) (emission, x (1 + n)) and Gamma_up(P) (absorption,
+    x n); the recoil moments are weighted by the expected numbers of transitions
+    N(P, t) = Int_0^t Gamma P_level dt'.  No discretisation to refine (`refined` is None).
+
+    Parameters
+    ----------
+    scenario : Scenario
+    progress : bool, optional
+        Accepted for a uniform interface; no progress bar.
+
+    References
+    ----------
+    J. J. Sakurai, Modern Quantum Mechanics, sec. 5.6 (the golden-rule transition rate).
+    """
 
     name = "perturbative"
 
     def evolve(self, times):
-        """Golden-rule rate equations per packet momentum (module docstring).
+        """Golden-rule rate equations per packet momentum, with their recoil moments.
+
+        With w_P the packet quadrature weights (`Packet.quadrature`), P_e(P, t) from
+        `two_level_populations`, N_down(P, t) = Gamma_down Int_0^t P_e dt' and
+        N_up(P, t) = Gamma_up Int_0^t (1 - P_e) dt' the expected numbers of transitions, and per
+        transition the mean axial kick <dq_par> and second moments <dq_par^2>, <dq_perp^2>
+        (`kick_moments` divided by the rate):
+
+            P_e(t)     = sum_P w_P P_e(P, t),
+            <p>(t)     = p0 + sum_P w_P N(P, t) <dq_par> <cos a>,
+            <p^2>(t)   = sigma_p^2 + p0^2 + sum_P w_P N(P, t) [2 P <dq_par> <cos^2 a>
+                         + <dq_par^2> <cos^2 a> + <dq_perp^2> (1 - <cos^2 a>)],
+
+        summed over both processes, where <cos a>, <cos^2 a> are the packet's conditional direction
+        moments at |P| (`Packet.direction_moments`; both 1 in 1D, where P is signed; in 3D P
+    stands for |P|).  The
+        ground-state snapshots: in 1D the density |psi(P)|^2 (1 - P_e(P, t)) mapped through each
+        emission channel P -> q = P + kick(P) with the Jacobian 1 / |dq/dP| and the channel's share
+        of the rate (excited start), or left in place (ground start); in 3D
+        (1 - P_e(t)) [N(0, sigma_p^2) * U(-h, h)](p - p0 - <kick>), h = sqrt(3 <kick^2>).
 
         Parameters
         ----------
         times : ndarray
-            Sample times (time units).
+            Sample times, increasing from 0 (time units).
 
         Returns
         -------
         Evolution
-            P_e(t); <p>, Var p along the packet axis (momentum, momentum^2); ground-state axis
-            momentum densities at the snapshot times (1 / momentum).  No x variance or purity.
+            P_e(t) (dimensionless); <p>, Var p along the packet axis (momentum units, momentum^2);
+            ground-state axis momentum densities at the snapshot times and the initial density on
+            `axis_grid` (1 / momentum units).  No x variance, purity or norm check.
+
+        References
+        ----------
+        J. J. Sakurai, Modern Quantum Mechanics, sec. 5.6 (golden-rule rates).
+        Abramowitz & Stegun, Handbook of Mathematical Functions, ch. 25 (the Gauss quadrature of
+        the packet).
         """
         s = self.scenario
         model, field, packet = model_for(s), field_for(s), packet_for(s)
@@ -123,10 +198,12 @@ class PerturbativeSolver(Solver):
 
 
 def _snapshots_1d(model, field, packet, P, excited_P, excited_start, grid, snaps):
-    """Ground density on `grid` at the snapshots (1 / momentum): the packet density
-    |psi(P)|^2 (1 - P_e(P, t)) mapped through each emission channel P -> q = P + kick(P) with
-    the Jacobian 1 / |dq/dP| and the channel's share of the rate (excited start), or left in
-    place (ground start: the part never excited)."""
+    """Ground density on `grid` at the snapshots (1 / momentum units).
+
+    The packet density |psi(P)|^2 (1 - P_e(P, t)) mapped through each emission channel
+    P -> q = P + kick(P) with the Jacobian 1 / |dq/dP| and the channel's share of the rate
+    (excited start), or left in place (ground start: the part never excited).
+    """
     remaining = packet.axis_density(P)[:, None] * (1 - excited_P[:, snaps])
     if not excited_start:
         return np.stack([np.interp(grid, P, col, left=0.0, right=0.0) for col in remaining.T],

@@ -17,7 +17,7 @@ from sim.physics.checks import load_scenario
 from sim.config.template import MEANINGS, template_text
 from sim.workflows.new import write_template
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 SCENARIOS = sorted((ROOT / "scenarios").glob("*.toml"))
 #: keys whose example value conflicts with the template's other settings when set alone
 COMBINATION_KEYS = {"coupling.lifetime", "coupling.matching", "run.seed"}
@@ -85,7 +85,7 @@ def test_bundled_scenario_loads_and_rates_json_works(path, capsys):
     assert all(math.isfinite(r) for r in report["template"]["rate"])
 
 
-def test_bundled_scenarios_cover_the_issue():
+def test_bundled_scenarios_include_the_lab_light_strong_and_thermal_cases():
     names = {p.name for p in SCENARIOS}
     assert {"waveguide_atom_1d.toml", "light_detector_3d.toml", "strong_coupling_1d.toml",
             "thermal_excitation_3d.toml"} <= names

@@ -29,6 +29,8 @@ from sim.result import assemble, result_of
 from sim.solvers.common import NORM_TOLERANCE, sample_times
 from sim.solvers.exact.solver import ExactSolver
 
+from ..builders import build_scenario
+
 #: rounding slack for probabilities computed as sums of |amplitude|^2
 ROUNDING = 1e-9
 
@@ -60,10 +62,10 @@ def natural_scenario(draw, method: str, dims: int | None = None, thermal: float 
     gap = ground_mass * draw(log_uniform(0.02, 0.6))
     sigma = gap * draw(log_uniform(0.02, 0.4))
     speed = draw(st.floats(-0.6, 0.6))
-    field = {"dimensions": dims, "mass": draw(maybe(log_uniform(0.01 * gap, 0.3 * gap))),
-             "smearing": draw(maybe(log_uniform(0.05 / gap, 1.0 / gap)))}
+    field = {"field__mass": draw(maybe(log_uniform(0.01 * gap, 0.3 * gap))),
+             "field__smearing": draw(maybe(log_uniform(0.05 / gap, 1.0 / gap)))}
     if thermal:
-        field["temperature"] = draw(maybe(log_uniform(0.1 * gap, thermal * gap)))
+        field["field__temperature"] = draw(maybe(log_uniform(0.1 * gap, thermal * gap)))
     lifetime = 1.0 / (gap * draw(log_uniform(1e-3, 0.03)))
     if dims == 1:
         momentum = speed * ground_mass
@@ -73,20 +75,22 @@ def natural_scenario(draw, method: str, dims: int | None = None, thermal: float 
         momentum = ([float(c) for c in direction / size * abs(speed) * ground_mass]
                     if size > 0.1 else abs(speed) * ground_mass)
     internal = "excited"
-    if thermal and field["temperature"] >= 0.2 * gap and draw(st.booleans()):
+    if thermal and field["field__temperature"] >= 0.2 * gap and draw(st.booleans()):
         internal = "ground"
-    raw = {"title": "property test",
-           "detector": {"model": model, "ground_mass": ground_mass, "gap": gap},
-           "field": field,
-           "coupling": {"lifetime": lifetime},
-           "packet": {"width": 0.5 / sigma, "momentum": momentum, "internal": internal},
-           "run": {"method": method, "t_max": draw(st.floats(0.5, 3.0)) * lifetime,
-                   "samples": draw(st.integers(21, 41))}}
+    t_max = draw(st.floats(0.5, 3.0)) * lifetime
+    samples = draw(st.integers(21, 41))
+    matching = None
     if model == "one-particle":
-        raw["coupling"]["matching"] = draw(st.sampled_from(["nonrelativistic", "rest-frame"]))
-    for table, keys in small_discretisation(draw, method, dims).items():
-        raw.setdefault(table, {}).update(keys)
-    return raw
+        matching = draw(st.sampled_from(["nonrelativistic", "rest-frame"]))
+    discretisation = {f"{table}__{key}": value
+                      for table, keys in small_discretisation(draw, method, dims).items()
+                      for key, value in keys.items()}
+    # hypothesis strategies cannot take fixtures: the plain function behind `make_scenario`
+    return build_scenario(title="property test", model=model, ground_mass=ground_mass, gap=gap,
+                          dims=dims, **field, strength=None, coupling__lifetime=lifetime,
+                          coupling__matching=matching, width=0.5 / sigma, momentum=momentum,
+                          internal=internal, method=method, t_max=t_max, samples=samples,
+                          **discretisation)
 
 
 def small_discretisation(draw, method: str, dims: int) -> dict:
@@ -193,9 +197,10 @@ def test_fock_probabilities_and_norm(raw):
 @settings(FAST, max_examples=6)
 @given(natural_scenario("exact", dims=1))
 def test_exact_total_momentum_is_conserved_1d(raw):
-    # total momentum P + sum_k k a_k^dag a_k is conserved (physics.md sec. 1): the detector's
-    # <p>(t) from the run plus the field's <k>(t), recomputed sector by sector from the bath's
-    # star spectra (sim.exact), equals the initial <P> at every recoil sample
+    # total momentum P + sum_k k a_k^dag a_k is conserved (common practice: H is translation
+    # invariant, each vertex exp(ik.X) a_k moves the detector by -k as it creates k): the
+    # detector's <p>(t) from the run plus the field's <k>(t), recomputed sector by sector from the
+    # bath's star spectra (sim.solvers.exact.star), equals the initial <P> at every recoil sample
     s = loaded(raw)
     solver = ExactSolver(s)
     times = sample_times(s)
@@ -237,7 +242,8 @@ def test_rates_are_non_negative_for_both_processes(raw, speeds):
     assert packet_rate(s) >= 0
     vacuum = with_keys(s, {"field.temperature": 0.0, "packet.internal": "excited"})
     if s.field.temperature == 0:
-        # no quanta to absorb in the vacuum (physics.md sec. 3: absorption x n(w), n = 0)
+        # no quanta to absorb in the vacuum (Einstein relations, common practice: absorption
+        # x n(w), n = 0)
         assert np.all(absorption == 0)
     else:
         # stimulated emission: the thermal factor 1 + n(w) >= 1 never lowers a rate
@@ -339,8 +345,8 @@ def test_every_method_is_invariant_under_a_change_of_units(raw, gap_ev):
 def test_sector_survival_respects_the_mandelstam_tamm_bound(raw):
     # quantum speed limit (Mandelstam & Tamm 1945; common practice): a state of energy spread dE
     # survives with P(t) >= cos^2(dE t) for t < pi / (2 dE).  For the star sector started in |e>,
-    # dE^2 = <H^2> - <H>^2 = sum_k |g_k|^2 (= Int J_P).  Sectors from sim.bath, c(t) from
-    # sim.exact.level_amplitude.
+    # dE^2 = <H^2> - <H>^2 = sum_k |g_k|^2 (= Int J_P).  Sectors from sim.solvers.exact.baths,
+    # c(t) from sim.solvers.exact.star.level_amplitude.
     s = loaded(raw)
     bath = bath_for(s, float(sample_times(s)[-1]))
     for sector in bath.sectors:

@@ -10,19 +10,16 @@ from sim import load_scenario, run
 from sim.workflows.compare import COMPARED, compare_to_folder
 from sim.errors import OutputExists
 
-SCENARIO = {
-    "detector": {"model": "newton-wigner", "ground_mass": 1.0, "gap": 0.5},
-    "field": {"dimensions": 1, "mass": 0.1},
-    "coupling": {"strength": 0.1},
-    "packet": {"width": 10.0, "momentum": 0.2},
-    "run": {"method": "markov", "t_max": 300.0, "samples": 31},
-}
+#: the compared scenario as `make_scenario` keywords (invented numbers)
+COMPARE = dict(title=None, model="newton-wigner", ground_mass=1.0, gap=0.5, dims=1,
+               field__mass=0.1, strength=0.1, width=10.0, momentum=0.2, method="markov",
+               t_max=300.0, samples=31)
 
 
 @pytest.fixture(scope="module")
-def folder(tmp_path_factory):
+def folder(tmp_path_factory, make_scenario):
     out = tmp_path_factory.mktemp("cmp") / "out"
-    compare_to_folder(load_scenario(SCENARIO), out)
+    compare_to_folder(load_scenario(make_scenario(COMPARE)), out)
     return out
 
 
@@ -43,9 +40,9 @@ def test_compare_writes_one_column_per_method_run(folder):
     assert values[0, 1:] == pytest.approx(1.0)  # every method starts excited
 
 
-def test_compare_columns_are_the_methods_own_runs(folder):
+def test_compare_columns_are_the_methods_own_runs(folder, make_scenario):
     header, values = read_csv(folder / "compare.csv")
-    direct = run(load_scenario(SCENARIO), method="markov")
+    direct = run(load_scenario(make_scenario(COMPARE)), method="markov")
     column = values[:, header.index("markov")]
     assert np.max(np.abs(column - direct.excited)) < 1e-10  # csv keeps 12 significant digits
     assert values[:, 0] == pytest.approx(direct.times)
@@ -62,6 +59,6 @@ def test_compare_differences_are_taken_from_exact(folder):
                                      abs=1e-9)
 
 
-def test_compare_refuses_a_full_folder_without_force(folder):
+def test_compare_refuses_a_full_folder_without_force(folder, make_scenario):
     with pytest.raises(OutputExists, match="--force"):
-        compare_to_folder(load_scenario(SCENARIO), folder)
+        compare_to_folder(load_scenario(make_scenario(COMPARE)), folder)

@@ -1,4 +1,4 @@
-"""Physical units in scenarios (sim.units): conversions, output units, bad strings.
+"""Physical units in scenarios (sim.config.units): conversions, output units, bad strings.
 
 Check values written here from memory (not computed with the module's own constants):
   hbar c = 197.3269804 MeV fm and 1 u c^2 = 931.49410242 MeV (CODATA 2018, from memory);
@@ -28,24 +28,20 @@ H_EV_S = 4.135667696e-15  # eV s (exact, from memory)
 HBAR_EV_S = H_EV_S / (2 * math.pi)
 
 
-def rubidium(dims=3, model="newton-wigner", **run_keys):
-    """Rb-87 D2 line as check values (Steck, "Rubidium 87 D Line Data"; from memory)."""
-    return {
-        "title": "Rb-87 D2 check",
-        "detector": {"model": model, "ground_mass": "86.909180527 u", "gap": "780.241209686 nm"},
-        "field": {"dimensions": dims},
-        "coupling": {"lifetime": "26.2 ns"},
-        "packet": {"width": "50 nm", "momentum": "0 eV/c"},
-        "run": {"method": "perturbative", **run_keys},
-    }
+#: Rb-87 D2 line as check values (Steck, "Rubidium 87 D Line Data"; from memory), as
+#: `make_scenario` keywords; the packet is invented
+RB87 = dict(title="Rb-87 D2 check", model="newton-wigner", ground_mass="86.909180527 u",
+            gap="780.241209686 nm", dims=3, strength=None, coupling__lifetime="26.2 ns",
+            width="50 nm", momentum="0 eV/c", internal=None, method="perturbative", t_max=None,
+            samples=None)
 
 
 @pytest.mark.parametrize("model", ["galilean", "newton-wigner", "one-particle"])
 @pytest.mark.parametrize("dims", [1, 3])
-def test_rubidium_d2_recoil_velocity(model, dims):
+def test_rubidium_d2_recoil_velocity(make_scenario, model, dims):
     # v = h / (m lambda) = 5.8845 mm/s for Rb-87 on its D2 line (D. A. Steck, "Rubidium 87 D
     # Line Data", from memory); 4 digits.
-    v = recoil_velocity(load_scenario(rubidium(dims, model)))
+    v = recoil_velocity(load_scenario(make_scenario(RB87, dims=dims, model=model)))
     assert round(v * 1e3, 4) == 5.8845
 
 
@@ -120,13 +116,13 @@ def test_units_and_natural_numbers_give_the_same_rates():
     assert rest_rate(a) == pytest.approx(rest_rate(b), rel=1e-8)
 
 
-def test_lifetime_string_sets_the_rest_frame_rate():
-    s = load_scenario(rubidium(3))
+def test_lifetime_string_sets_the_rest_frame_rate(make_scenario):
+    s = load_scenario(make_scenario(RB87, dims=3))
     assert s.units.to_output("rate_golden_rule", rest_rate(s)) == pytest.approx(1 / 26.2, rel=1e-10)
 
 
-def test_written_run_is_in_output_units(tmp_path):
-    result = run(rubidium(1, t_max="80 ns", samples=41))
+def test_written_run_is_in_output_units(make_scenario, tmp_path):
+    result = run(make_scenario(RB87, dims=1, t_max="80 ns", samples=41))
     out = tmp_path / "run"
     write_result(result, out, figures=False)
     summary = json.loads((out / "summary.json").read_text())
@@ -156,8 +152,9 @@ def dimensional_keys():
 
 @pytest.mark.parametrize("table,key,dimension", dimensional_keys())
 @pytest.mark.parametrize("text", ["12 parsecs per fish", "3 kg*m^2/s^3/K/A", "42", "9**9**9 s"])
-def test_bad_string_gives_one_line_naming_key_value_and_units(table, key, dimension, text):
-    raw = rubidium(3)
+def test_bad_string_gives_one_line_naming_key_value_and_units(make_scenario, table, key,
+                                                               dimension, text):
+    raw = make_scenario(RB87, dims=3)
     raw.setdefault(table, {})[key] = text
     with pytest.raises(ScenarioError) as info:
         load_scenario(raw)
@@ -166,8 +163,8 @@ def test_bad_string_gives_one_line_naming_key_value_and_units(table, key, dimens
     assert repr(text) in lines[0] and "allowed: " in lines[0]
 
 
-def test_units_need_the_gap_with_a_unit():
-    raw = rubidium(3)
+def test_units_need_the_gap_with_a_unit(make_scenario):
+    raw = make_scenario(RB87, dims=3)
     raw["detector"]["gap"] = 1.5
     with pytest.raises(ScenarioError, match="detector.gap = 1.5: a scenario that writes units"):
         load_scenario(raw)

@@ -1,4 +1,5 @@
-"""Parameter sweeps (sim.sweep): specs, products, resuming after a kill, failures, Dask."""
+"""Parameter sweeps (sim.workflows.sweep): specs, products, resuming after a kill, failures,
+Dask."""
 
 import csv
 import json
@@ -19,33 +20,10 @@ from sim.physics.golden_rule import packet_rate
 from sim.physics.checks import load_scenario, with_keys
 from sim.workflows.sweep import parse_vary, run_sweep, sweep_points
 
-BASE = """
-title = "sweep test"
-[detector]
-model = "newton-wigner"
-ground_mass = 1.0
-gap = 0.5
-[field]
-dimensions = 1
-mass = 0.02
-[coupling]
-strength = 0.05
-[packet]
-width = 20.0
-momentum = 0.3
-internal = "{internal}"
-[run]
-method = "perturbative"
-{t_max}
-samples = 31
-"""
-
-
-@pytest.fixture
-def scenario_file(tmp_path):
-    path = tmp_path / "base.toml"
-    path.write_text(BASE.format(internal="excited", t_max="t_max = 150.0"))
-    return path
+#: this module's scenario defaults for `make_scenario` (invented numbers)
+SWEEP = dict(title="sweep test", model="newton-wigner", ground_mass=1.0, gap=0.5, dims=1,
+             field__mass=0.02, strength=0.05, width=20.0, momentum=0.3, internal="excited",
+             method="perturbative", t_max=150.0, samples=31)
 
 
 def read_table(folder: Path) -> list[dict]:
@@ -70,7 +48,8 @@ def test_specs():
         sweep_points([parse_vary("packet.width=1,2"), parse_vary("packet.width=3")])
 
 
-def test_bad_vary_is_one_line_and_exit_2(scenario_file, tmp_path, capsys):
+def test_bad_vary_is_one_line_and_exit_2(make_scenario, write_scenario, tmp_path, capsys):
+    scenario_file = write_scenario(make_scenario(SWEEP), "base.toml")
     assert main(["sweep", str(scenario_file), "--vary", "packet.wdth=1,2",
                  "--out", str(tmp_path / "o")]) == 2
     err = capsys.readouterr().err.strip().splitlines()
@@ -82,7 +61,8 @@ def test_bad_vary_is_one_line_and_exit_2(scenario_file, tmp_path, capsys):
     assert not (tmp_path / "o").exists()
 
 
-def test_product_of_two_varies(scenario_file, tmp_path, capsys):
+def test_product_of_two_varies(make_scenario, write_scenario, tmp_path, capsys):
+    scenario_file = write_scenario(make_scenario(SWEEP), "base.toml")
     out = tmp_path / "sweep"
     code = main(["sweep", str(scenario_file), "--vary", "packet.width=5:40:2log",
                  "--vary", "detector.model=galilean,newton-wigner", "--out", str(out),
@@ -115,7 +95,8 @@ def test_product_of_two_varies(scenario_file, tmp_path, capsys):
                  "--out", str(out)]) == 2
 
 
-def test_killed_sweep_resumes_with_every_point_once(scenario_file, tmp_path):
+def test_killed_sweep_resumes_with_every_point_once(make_scenario, write_scenario, tmp_path):
+    scenario_file = write_scenario(make_scenario(SWEEP), "base.toml")
     out = tmp_path / "killed"
     args = ["sweep", str(scenario_file), "--vary", "packet.width=4:40:5log", "--out", str(out),
             "--workers", "2"]
@@ -142,11 +123,11 @@ def test_killed_sweep_resumes_with_every_point_once(scenario_file, tmp_path):
     assert not list(out.glob(".*.part")) and not list(out.glob(".*.old"))
 
 
-def test_failing_point_is_recorded_and_the_rest_runs(tmp_path, capsys):
+def test_failing_point_is_recorded_and_the_rest_runs(make_scenario, write_scenario, tmp_path,
+                                                      capsys):
     # a ground-state packet in the vacuum has zero golden-rule rate, so with no t_max the run
     # of the T = 0 point fails (no automatic time span); the thermal point runs
-    path = tmp_path / "ground.toml"
-    path.write_text(BASE.format(internal="ground", t_max=""))
+    path = write_scenario(make_scenario(SWEEP, internal="ground", t_max=None), "ground.toml")
     out = tmp_path / "sweep"
     argv = ["sweep", str(path), "--vary", "field.temperature=0,0.5", "--out", str(out),
             "--workers", "1"]
@@ -163,7 +144,9 @@ def test_failing_point_is_recorded_and_the_rest_runs(tmp_path, capsys):
 
 
 @pytest.mark.slow  # starts a two-worker LocalCluster (~10 s)
-def test_dask_cluster_gives_the_same_table_as_local_processes(scenario_file, tmp_path):
+def test_dask_cluster_gives_the_same_table_as_local_processes(make_scenario, write_scenario,
+                                                              tmp_path):
+    scenario_file = write_scenario(make_scenario(SWEEP), "base.toml")
     distributed = pytest.importorskip("distributed")
     base = load_scenario(scenario_file)
     axes = [parse_vary("packet.width=5,40"), parse_vary("detector.model=galilean,one-particle")]

@@ -1,4 +1,4 @@
-"""Tests of the exact star-sector solver `sim.exact`."""
+"""Tests of the exact star-sector solver `sim.solvers.exact.star`."""
 
 from __future__ import annotations
 
@@ -119,7 +119,8 @@ def test_norm_is_conserved():
 def test_short_time_expansion():
     # Taylor expansion of <e|exp(-iHt)|e> (standard; with h = H - E0, m_n = <e|h^n|e>, m_2 = B):
     # |c(t)|^2 = 1 - B t^2 + (B^2/4 + m_4/12) t^4 + O(t^6), B = sum |g_k|^2, m_4 = B^2 + sum |g_k|^2 (eps_k - E0)^2.
-    # The t^2 term is physics.md section 2's exact Zeno-region law; the t^4 term pins its error.
+    # The t^2 term is the exact Zeno-region law (common practice; Misra & Sudarshan, J. Math.
+    # Phys. 18, 756 (1977), from memory); the t^4 term pins its error.
     rng = np.random.default_rng(4)
     level_energy, energies, couplings = random_star(rng, 50)
     strengths = np.abs(couplings) ** 2
@@ -170,7 +171,9 @@ def test_random_stars_conserve_norm(level_energy, energies, seed, time):
 
 
 def test_degenerate_modes_share_one_bright_mode():
-    # physics.md section 2: equal energies couple through g_eff = sqrt(sum |g|^2) only.
+    # Equal energies couple through g_eff = sqrt(sum |g|^2) only (common practice: a unitary
+    # change of basis among degenerate modes leaves one bright combination coupled and the
+    # orthogonal dark ones decoupled; as in the docstring of sim.solvers.exact.star.bright_modes).
     modes = bright_modes([1.0, 0.5, 1.0 + 1e-15, 2.0, 0.7], [3.0, 1j, 4.0, 0.0, 1.0])
     assert np.allclose(modes.energies, [0.5, 0.7, 1.0])
     assert np.allclose(modes.weights, [1.0, 1.0, 25.0])

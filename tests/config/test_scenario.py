@@ -11,14 +11,15 @@ from sim import ScenarioError, load_scenario
 from sim.config.schema import SCHEMA
 from sim.physics.checks import with_keys
 
-BASE = {
-    "title": "test",
-    "detector": {"model": "newton-wigner", "ground_mass": 1.0, "gap": 0.5},
-    "field": {"dimensions": 1, "mass": 0.0, "smearing": 0.0, "cutoff": 4.0, "temperature": 0.0},
-    "coupling": {"strength": 0.1, "rotating_wave": True},
-    "packet": {"width": 10.0, "momentum": 0.2, "internal": "excited"},
-    "run": {"method": "perturbative", "t_max": 100.0, "samples": 11},
-}
+from ..builders import build_scenario
+
+#: a scenario that writes every public key (invented numbers); a module constant, since the
+#: hypothesis strategies below use it and cannot take fixtures
+BASE = build_scenario(title="test", model="newton-wigner", ground_mass=1.0, gap=0.5, dims=1,
+                      field__mass=0.0, field__smearing=0.0, field__cutoff=4.0,
+                      field__temperature=0.0, strength=0.1, coupling__rotating_wave=True,
+                      width=10.0, momentum=0.2, internal="excited", method="perturbative",
+                      t_max=100.0, samples=11)
 
 
 def test_reads_every_public_key():

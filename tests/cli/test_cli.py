@@ -10,37 +10,17 @@ import pytest
 
 from sim.cli import main
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 SCENARIOS = sorted((ROOT / "scenarios").glob("*.toml"))
 
-PERTURBATIVE = """
-title = "cli test"
-[detector]
-model = "galilean"
-ground_mass = 10.0
-gap = 0.5
-[field]
-dimensions = 1
-[coupling]
-strength = 0.1
-[packet]
-width = 20.0
-momentum = 0.1
-[run]
-method = "perturbative"
-t_max = 300.0
-samples = 51
-"""
+#: this module's scenario defaults for `make_scenario`: a small fast perturbative 1D run of a heavy
+#: galilean detector (invented numbers)
+CLI = dict(title="cli test", model="galilean", ground_mass=10.0, gap=0.5, dims=1, strength=0.1,
+           width=20.0, momentum=0.1, method="perturbative", t_max=300.0, samples=51)
 
 
-@pytest.fixture
-def scenario_file(tmp_path):
-    path = tmp_path / "s.toml"
-    path.write_text(PERTURBATIVE)
-    return path
-
-
-def test_rates_json_contract(scenario_file, capsys):
+def test_rates_json_contract(make_scenario, write_scenario, capsys):
+    scenario_file = write_scenario(make_scenario(CLI))
     assert main(["rates", str(scenario_file), "--json", "--at", "0,0.5,1"]) == 0
     report = json.loads(capsys.readouterr().out)
     assert set(report) == {"rate", "rest_rate", "template"}
@@ -50,7 +30,8 @@ def test_rates_json_contract(scenario_file, capsys):
     assert report["rate"] > 0
 
 
-def test_rates_table_and_plot(scenario_file, tmp_path, capsys):
+def test_rates_table_and_plot(make_scenario, write_scenario, tmp_path, capsys):
+    scenario_file = write_scenario(make_scenario(CLI))
     figure = tmp_path / "rates.png"
     assert main(["rates", str(scenario_file), "--plot", str(figure)]) == 0
     out = capsys.readouterr().out
@@ -64,7 +45,8 @@ def test_every_bundled_scenario_gives_rates(path, capsys):
     assert report["rate"] >= 0 and len(report["template"]["p"]) > 1
 
 
-def test_run_writes_contract_files(scenario_file, tmp_path):
+def test_run_writes_contract_files(make_scenario, write_scenario, tmp_path):
+    scenario_file = write_scenario(make_scenario(CLI))
     out = tmp_path / "out"
     assert main(["run", str(scenario_file), "--out", str(out)]) == 0
     with open(out / "population.csv") as f:
@@ -82,7 +64,8 @@ def test_run_writes_contract_files(scenario_file, tmp_path):
     assert not list(tmp_path.glob(".*part*"))
 
 
-def test_run_refuses_to_overwrite_without_force(scenario_file, tmp_path, capsys):
+def test_run_refuses_to_overwrite_without_force(make_scenario, write_scenario, tmp_path, capsys):
+    scenario_file = write_scenario(make_scenario(CLI))
     out = tmp_path / "out"
     assert main(["run", str(scenario_file), "--out", str(out)]) == 0
     before = (out / "summary.json").read_text()
@@ -92,9 +75,8 @@ def test_run_refuses_to_overwrite_without_force(scenario_file, tmp_path, capsys)
     assert main(["run", str(scenario_file), "--out", str(out), "--force"]) == 0
 
 
-def test_bad_scenario_one_line_per_problem_exit_2(tmp_path):
-    bad = tmp_path / "bad.toml"
-    bad.write_text(PERTURBATIVE.replace("gap = 0.5", "gap = -0.5"))
+def test_bad_scenario_one_line_per_problem_exit_2(make_scenario, write_scenario):
+    bad = write_scenario(make_scenario(CLI, gap=-0.5), "bad.toml")
     proc = subprocess.run([sys.executable, "-m", "sim.cli", "rates", str(bad)],
                           capture_output=True, text=True)
     assert proc.returncode == 2
@@ -104,6 +86,7 @@ def test_bad_scenario_one_line_per_problem_exit_2(tmp_path):
     assert "Traceback" not in proc.stderr
 
 
-def test_bad_at_option(scenario_file, capsys):
+def test_bad_at_option(make_scenario, write_scenario, capsys):
+    scenario_file = write_scenario(make_scenario(CLI))
     assert main(["rates", str(scenario_file), "--at", "a,b"]) == 2
     assert "--at" in capsys.readouterr().err

@@ -1,9 +1,10 @@
 """The truncated Fock-space solver (method = "fock") against independent references.
 
-References: the exact single-excitation solver on identical modes (sim.exact, itself checked against
-closed forms), second-order time-dependent perturbation theory (textbook formula, Sakurai, Modern
-Quantum Mechanics, sec. 5.6), and an independent QuTiP build of the full Hamiltonian on a
-tensor-product space (COM momentum register x level x modes) that uses no momentum sectors.
+References: the exact single-excitation solver on identical modes (sim.solvers.exact, itself
+checked against closed forms), second-order time-dependent perturbation theory (textbook formula,
+Sakurai, Modern Quantum Mechanics, sec. 5.6), and an independent QuTiP build of the full
+Hamiltonian on a tensor-product space (COM momentum register x level x modes) that uses no momentum
+sectors.
 """
 
 import csv
@@ -26,31 +27,23 @@ from sim.plotting import counter_rotating_figure
 from sim.solvers.fock.basis import fock_basis, occupation_counts, state_count
 from sim.solvers.fock.solver import FockSolver
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[3]
 
 
-def scenario(**changes):
-    """A small 1D fock scenario (invented numbers); `changes` are dotted keys (None removes one)."""
-    raw = {"title": "fock test",
-           "detector": {"model": "newton-wigner", "ground_mass": 1.0, "gap": 0.5},
-           "field": {"dimensions": 1, "mass": 0.1},
-           "coupling": {"strength": 0.1, "rotating_wave": False},
-           "packet": {"width": 20.0, "momentum": 0.3, "internal": "excited"},
-           "run": {"method": "fock", "t_max": 40.0, "samples": 81},
-           "bath": {"box_length": 60.0, "fock_modes": 10}}
-    for dotted, value in changes.items():
-        table, key = dotted.split(".")
-        if value is None:
-            raw[table].pop(key)
-        else:
-            raw.setdefault(table, {})[key] = value
-    return load_scenario(raw)
+#: this module's scenario defaults for `make_scenario`: a small 1D fock run (invented numbers)
+FOCK = dict(title="fock test", model="newton-wigner", ground_mass=1.0, gap=0.5, dims=1,
+            field__mass=0.1, strength=0.1, coupling__rotating_wave=False, width=20.0,
+            momentum=0.3, internal="excited", method="fock", t_max=40.0, samples=81,
+            bath__box_length=60.0, bath__fock_modes=10)
 
 
-# --- independent closed forms, written out here from physics.md sec. 1 ---------------------------
+# --- independent closed forms, written out here from the model definitions -----------------------
+# (the module docstrings of sim.physics.models.galilean, .newton_wigner and .one_particle; the
+# dispersions p^2/2M and sqrt(p^2 + M^2) and the 1/sqrt(2E) normalisation of relativistic
+# one-particle states are common practice)
 
 def energies(model, mass_g, gap, p):
-    """E_g(p), E_e(p) - M_g of the model (physics.md sec. 1 table)."""
+    """E_g(p), E_e(p) - M_g of the model: p^2/2M (+ Omega), or sqrt(p^2 + M_g,e^2) - M_g."""
     p = np.abs(np.asarray(p, dtype=float))
     if model == "galilean":
         return p ** 2 / (2 * mass_g), p ** 2 / (2 * mass_g) + gap
@@ -58,7 +51,7 @@ def energies(model, mass_g, gap, p):
 
 
 def vertex(model, mass_g, gap, p_e, p_g):
-    """V(p_e, p_g): 1, or 1/sqrt(2E_e 2E_g) for one-particle (physics.md sec. 1)."""
+    """V(p_e, p_g): 1, or 1/sqrt(2E_e 2E_g) for one-particle (relativistic normalisation)."""
     if model != "one-particle":
         return np.ones(np.broadcast(p_e, p_g).shape)
     e_g = np.sqrt(np.square(p_g) + mass_g ** 2)
@@ -78,10 +71,11 @@ def box_couplings(s, k):
 # --- tests ----------------------------------------------------------------------------------------
 
 @pytest.mark.parametrize("model", ["newton-wigner", "one-particle", "galilean"])
-def test_rotating_wave_reproduces_exact_star_on_identical_modes(model):
-    """RWA: the sector sesolve equals the exact secular solution (sim.exact) to 1e-8."""
-    s = scenario(**{"coupling.rotating_wave": True, "detector.model": model, "bath.sectors": 12,
-                    "field.smearing": 0.5, "packet.width": 5.0})
+def test_rotating_wave_reproduces_exact_star_on_identical_modes(make_scenario, model):
+    """RWA: the sector sesolve equals the exact secular solution (sim.solvers.exact.star) to
+    1e-8."""
+    s = load_scenario(make_scenario(FOCK, coupling__rotating_wave=True, model=model,
+                                    bath__sectors=12, field__smearing=0.5, width=5.0))
     result = run(s)
     plan = FockSolver(s).plan
     k = plan.modes.momenta[:, 0]
@@ -97,26 +91,27 @@ def test_rotating_wave_reproduces_exact_star_on_identical_modes(model):
     np.testing.assert_allclose(result.excited, expected, rtol=0, atol=1e-8)
 
 
-def test_rotating_wave_reproduces_method_exact_on_the_same_box():
-    """RWA with every box mode kept: method "fock" equals method "exact" (sim.bath's box) to 1e-8,
-    for the decay and for the recoil moments."""
-    s = scenario(**{"coupling.rotating_wave": True, "bath.sectors": 12, "bath.fock_modes": 1000,
-                    "packet.width": 5.0})
+def test_rotating_wave_reproduces_method_exact_on_the_same_box(make_scenario):
+    """RWA with every box mode kept: method "fock" equals method "exact" (the box of
+    sim.solvers.exact.baths) to 1e-8, for the decay and for the recoil moments."""
+    s = load_scenario(make_scenario(FOCK, coupling__rotating_wave=True, bath__sectors=12,
+                                    bath__fock_modes=1000, width=5.0))
     fock, exact = run(s), run(s, method="exact")
     assert exact.excited.min() < 0.5 and exact.summary["stats"]["sectors"] >= 9
     for name in ("excited", "p_mean", "p_var"):
         np.testing.assert_allclose(getattr(fock, name), getattr(exact, name), rtol=0, atol=1e-8)
 
 
-def test_thermal_field_is_refused():
+def test_thermal_field_is_refused(make_scenario):
     with pytest.raises(ScenarioError, match="field.temperature"):
-        run(scenario(**{"field.temperature": 0.1}))
+        run(load_scenario(make_scenario(FOCK, field__temperature=0.1)))
 
 
-def test_rotating_wave_reproduces_exact_star_in_3d():
-    """3D octahedral bath, RWA: agreement with sim.exact on the plan's modes to 1e-8."""
-    s = scenario(**{"coupling.rotating_wave": True, "field.dimensions": 3, "packet.momentum": 0.2,
-                    "coupling.strength": 0.5, "bath.box_length": None, "bath.fock_modes": 18})
+def test_rotating_wave_reproduces_exact_star_in_3d(make_scenario):
+    """3D octahedral bath, RWA: agreement with sim.solvers.exact.star on the plan's modes to
+    1e-8."""
+    s = load_scenario(make_scenario(FOCK, coupling__rotating_wave=True, dims=3, momentum=0.2,
+                                    strength=0.5, bath__box_length=None, bath__fock_modes=18))
     result = run(s)
     plan = FockSolver(s).plan
     k = plan.modes.momenta
@@ -190,14 +185,14 @@ def independent_qutip_evolution(s, plan, times):
 
 
 @pytest.mark.parametrize("model, internal", [("one-particle", "excited"), ("galilean", "ground")])
-def test_counter_rotating_dynamics_match_independent_qutip_build(model, internal):
+def test_counter_rotating_dynamics_match_independent_qutip_build(make_scenario, model, internal):
     """All terms, three asymmetric modes: sectors vs a tensor-product QuTiP build (QuTiP reference).
 
     The reference also checks total-momentum conservation, since its H is not built sector-wise.
     """
-    s = scenario(**{"detector.model": model, "packet.internal": internal, "bath.fock_modes": 4,
-                    "bath.max_occupation": 2, "bath.max_quanta": 8, "coupling.strength": 0.4,
-                    "field.smearing": 0.8, "bath.box_length": 25.0, "run.t_max": 30.0})
+    s = load_scenario(make_scenario(FOCK, model=model, internal=internal, bath__fock_modes=4,
+                                    bath__max_occupation=2, bath__max_quanta=8, strength=0.4,
+                                    field__smearing=0.8, bath__box_length=25.0, t_max=30.0))
     result = run(s)
     plan = FockSolver(s).plan
     k = plan.modes.momenta[:, 0]
@@ -231,13 +226,13 @@ def second_order_excitation(s, plan, times):
     return total
 
 
-def test_vacuum_excitation_matches_second_order_and_scales_as_lambda_squared():
+def test_vacuum_excitation_matches_second_order_and_scales_as_lambda_squared(make_scenario):
     """Ground start, weak coupling: P_e(t) from the counter-rotating terms (Sakurai sec. 5.6).
 
     The residual is the fourth-order term: it must shrink as lambda^2 relative to P_e.
     """
-    weak = scenario(**{"packet.internal": "ground", "coupling.strength": 0.0025,
-                       "detector.model": "one-particle", "bath.sectors": 3})
+    weak = load_scenario(make_scenario(FOCK, internal="ground", strength=0.0025,
+                                       model="one-particle", bath__sectors=3))
     doubled = with_keys(weak, {"coupling.strength": 0.005})
     r1, r2 = run(weak), run(doubled)
     plan = FockSolver(weak).plan
@@ -254,12 +249,12 @@ def test_vacuum_excitation_matches_second_order_and_scales_as_lambda_squared():
                                rtol=1e-10, atol=1e-16)
 
 
-def test_vacuum_excitation_in_3d_matches_second_order():
+def test_vacuum_excitation_in_3d_matches_second_order(make_scenario):
     """3D octahedral bath, ground start, weak coupling: second order (Sakurai sec. 5.6) on the
     plan's modes (measures mu_j), with the vector recoil |P - k| written out here."""
-    s = scenario(**{"packet.internal": "ground", "field.dimensions": 3, "packet.momentum": 0.2,
-                    "coupling.strength": 0.01, "bath.box_length": None, "bath.fock_modes": 12,
-                    "bath.max_quanta": 3})
+    s = load_scenario(make_scenario(FOCK, internal="ground", dims=3, momentum=0.2,
+                                    strength=0.01, bath__box_length=None, bath__fock_modes=12,
+                                    bath__max_quanta=3))
     result = run(s)
     plan = FockSolver(s).plan
     d = s.detector
@@ -277,23 +272,23 @@ def test_vacuum_excitation_in_3d_matches_second_order():
     np.testing.assert_allclose(result.excited[late], expected[late], rtol=1e-3)
 
 
-def test_rotating_wave_keeps_a_ground_detector_in_the_vacuum():
+def test_rotating_wave_keeps_a_ground_detector_in_the_vacuum(make_scenario):
     """Under the RWA, |g, vac> is an eigenstate: no excitation (excitation number conserved)."""
-    r = run(scenario(**{"packet.internal": "ground", "coupling.rotating_wave": True}))
+    r = run(load_scenario(make_scenario(FOCK, internal="ground", coupling__rotating_wave=True)))
     assert np.all(r.excited == 0) and np.all(r.tables["field"]["quanta"] == 0)
 
 
-def test_norm_is_conserved():
+def test_norm_is_conserved(make_scenario):
     """Strong coupling, all terms: the total probability stays 1 (sesolve does not renormalise)."""
-    result = run(scenario(**{"coupling.strength": 0.3, "bath.sectors": 3}))
+    result = run(load_scenario(make_scenario(FOCK, strength=0.3, bath__sectors=3)))
     assert result.summary["stats"]["norm_drift"] < 1e-8
     assert not any("norm drift" in w for w in result.warnings)
     assert result.excited.min() < 0.9  # the run did evolve
 
 
-def test_fock_cutoff_convergence_and_refined():
+def test_fock_cutoff_convergence_and_refined(make_scenario):
     """Raising max_quanta converges: each step changes P_e less than the one before."""
-    base = scenario(**{"coupling.strength": 0.2, "bath.fock_modes": 6})
+    base = load_scenario(make_scenario(FOCK, strength=0.2, bath__fock_modes=6))
     curves = [run(with_keys(base, {"bath.max_quanta": q})).excited for q in (1, 2, 3, 4)]
     changes = [np.max(np.abs(b - a)) for a, b in zip(curves, curves[1:])]
     assert changes[0] > 1e-4  # the counter-rotating terms matter at this coupling
@@ -301,10 +296,11 @@ def test_fock_cutoff_convergence_and_refined():
     solver = FockSolver(with_keys(base, {"bath.max_quanta": 3}))
     finer = solver.refined()
     assert (finer.plan.max_quanta, finer.plan.max_occupation) == (4, 4)
-    assert FockSolver(scenario(**{"coupling.rotating_wave": True})).refined() is None
+    rotating = load_scenario(make_scenario(FOCK, coupling__rotating_wave=True))
+    assert FockSolver(rotating).refined() is None
 
 
-def test_state_count_matches_enumeration():
+def test_state_count_matches_enumeration(make_scenario):
     """The closed count (generating polynomial) equals brute-force enumeration with itertools."""
     for modes, occupation, quanta in [(4, 2, 3), (5, 1, 4), (3, 3, 3), (6, 4, 2)]:
         brute = [0] * (quanta + 1)
@@ -312,15 +308,16 @@ def test_state_count_matches_enumeration():
             if sum(n) <= quanta:
                 brute[sum(n)] += 1
         assert list(occupation_counts(modes, occupation, quanta)) == brute
-        s = scenario(**{"bath.fock_modes": modes, "bath.max_occupation": occupation,
-                        "bath.max_quanta": quanta})
+        s = load_scenario(make_scenario(FOCK, bath__fock_modes=modes,
+                                        bath__max_occupation=occupation, bath__max_quanta=quanta))
         plan = FockSolver(s).plan
         assert state_count(plan) == len(fock_basis(plan).levels) == sum(brute)
 
 
-def test_oversized_truncation_is_refused_before_allocating(capsys, tmp_path):
+def test_oversized_truncation_is_refused_before_allocating(make_scenario, capsys, tmp_path):
     """A clear refusal naming the keys, the state count and the memory; no traceback in the CLI."""
-    s = scenario(**{"bath.fock_modes": 60, "bath.max_quanta": 12, "bath.box_length": 400.0})
+    s = load_scenario(make_scenario(FOCK, bath__fock_modes=60, bath__max_quanta=12,
+                                    bath__box_length=400.0))
     started = time.perf_counter()
     with pytest.raises(ScenarioError) as info:
         run(s)
@@ -339,9 +336,9 @@ def test_oversized_truncation_is_refused_before_allocating(capsys, tmp_path):
     assert "bath.max_quanta" in err and "Traceback" not in err
 
 
-def test_files_and_figure(tmp_path):
+def test_files_and_figure(make_scenario, tmp_path):
     """field.csv (t, quanta) is written; the counter-rotating figure is stamped as simulated."""
-    result = run(scenario(**{"coupling.strength": 0.2}))
+    result = run(load_scenario(make_scenario(FOCK, strength=0.2)))
     write_result(result, tmp_path / "out")
     with open(tmp_path / "out" / "field.csv") as f:
         rows = list(csv.reader(f))
