@@ -184,6 +184,21 @@ def _mode_couplings(model: COMModel, field: Field, P, k, volume):
                    * volume)
 
 
+def bath_model(scenario) -> tuple[COMModel, Field]:
+    """The scenario's model and its bath field (a finite cutoff, `sim.physics.field.field_for`).
+
+    Parameters
+    ----------
+    scenario : Scenario
+
+    Returns
+    -------
+    (COMModel, Field)
+    """
+    model = model_for(scenario)
+    return model, field_for(scenario, model)
+
+
 def bath_for(scenario, t_max: float) -> Bath:
     """The scenario's truncated bath for a run to t_max (defaults overridable in [bath]).
 
@@ -408,10 +423,8 @@ def box_bath(scenario, t_max: float) -> Bath:
     Bath
         With the discretisation warnings (`resolution_notes`) in `notes`.
     """
-    model = model_for(scenario)
-    field = field_for(scenario, model)
-    packet = packet_for(scenario)
-    cfg = scenario.bath
+    model, field = bath_model(scenario)
+    packet, cfg = packet_for(scenario), scenario.bath
     length = cfg.box_length or default_box_length(scenario, model, t_max)
     spacing = 2 * np.pi / length
     budget = cfg.modes or MODE_BUDGET
@@ -608,10 +621,8 @@ def shell_bath(scenario, t_max: float) -> Bath:
     ----------
     Abramowitz & Stegun, Handbook of Mathematical Functions, ch. 25 (Gauss-Legendre quadrature).
     """
-    model = model_for(scenario)
-    field = field_for(scenario, model)
-    packet = packet_for(scenario)
-    cfg = scenario.bath
+    model, field = bath_model(scenario)
+    packet, cfg = packet_for(scenario), scenario.bath
     P, weights = packet.quadrature(cfg.sectors or SECTORS_3D)
     angular = cfg.angular_nodes or ANGULAR_NODES
     band = _band(model, field, float(P.max()))
@@ -707,8 +718,7 @@ def lamb_sector(scenario, bath: Bath) -> Sector:
     -------
     Sector
     """
-    model = model_for(scenario)
-    field = field_for(scenario, model)
+    model, field = bath_model(scenario)
     if bath.dimensions == 1:
         P = round(scenario.mean_momentum / bath.spacing) * bath.spacing
         return box_sector(model, field, P, bath.spacing, 1.0, bath.window)
@@ -740,8 +750,7 @@ def discreteness_correction(scenario, bath: Bath, sector: Sector) -> float:
     """
     if bath.dimensions == 3:
         return 0.0
-    model = model_for(scenario)
-    field = field_for(scenario, model)
+    model, field = bath_model(scenario)
     index = {int(n): i for i, n in enumerate(sector.lattice)}
     total = 0.0
     for channel, _ in _on_shell(model, field, sector.momentum):
