@@ -21,6 +21,7 @@ import json
 import math
 import os
 import sys
+import warnings
 from pathlib import Path
 
 from ..errors import OutputExists, ScenarioError, UsageError
@@ -42,10 +43,16 @@ def _momenta_option(text: str):
 
 
 def _load(path: str):
-    """The scenario file at `path`, loaded and validated."""
+    """The scenario file at `path` ("-": standard input), loaded and validated.
+
+    Its notes (warnings that did not stop it loading) go to stderr, one line each.
+    """
     from ..physics.checks import load_scenario
 
-    return load_scenario(path)
+    scenario = load_scenario(path)
+    for note in scenario.notes:
+        print(f"recoilsim: warning: {note}", file=sys.stderr)
+    return scenario
 
 
 def cmd_rates(args) -> int:
@@ -129,7 +136,8 @@ def cmd_run(args) -> int:
     Returns
     -------
     int
-        The process exit status: 0.
+        The process exit status: 0; with ``--dry-run`` 0 when the run would go ahead and
+        EXIT_BAD_INPUT (2) when the memory guard would refuse it (the verdict is printed).
 
     Raises
     ------
@@ -144,11 +152,17 @@ def cmd_run(args) -> int:
 
     scenario = _load(args.scenario)
     if args.dry_run:
+        from ..solvers.base import refusal
+
         estimate, available = dry_run(scenario)
+        reason = refusal(estimate, scenario.run.method, available)
+        verdict = "would run" if reason is None else f"would be refused: {reason}"
         print(f"{scenario.title}: method {scenario.run.method} would use {estimate.describe()}; "
-              f"{available / 2**30:.3g} GiB available"
-              + (f"; size set by {', '.join(estimate.keys)}" if estimate.keys else ""))
-        return 0
+              f"{available / 2**30:.3g} GiB available; size set mostly by "
+              f"{estimate.named(estimate.dominant_key)}"
+              + (f" (size keys: {', '.join(estimate.ordered_keys())})" if estimate.keys else "")
+              + f"; {verdict}")
+        return 0 if reason is None else EXIT_BAD_INPUT
     if args.out is None:
         raise UsageError("run: --out DIR is required (or --dry-run)")
     out = Path(args.out)
@@ -225,7 +239,8 @@ def cmd_sweep(args) -> int:
     ----------
     args : argparse.Namespace
         ``scenario`` (TOML file), ``vary`` (list of KEY=SPEC), ``out`` (folder), ``workers``
-        (int or None) and ``scheduler`` (Dask scheduler address or None).
+        (int or None), ``scheduler`` (Dask scheduler address or None) and ``force`` (bool:
+        replace a recoilsim folder holding a different sweep).
 
     Returns
     -------
@@ -239,6 +254,9 @@ def cmd_sweep(args) -> int:
     UsageError
         If a ``--vary``, ``--workers`` or ``--scheduler`` is unusable, or ``--out`` cannot hold
         this sweep.
+    OutputExists
+        With ``--force``, if ``--out`` is not recoilsim's own folder or holds files it did not
+        write.
     """
     from ..workflows.sweep import TABLE_FILE, parse_vary, run_sweep
 
@@ -246,7 +264,7 @@ def cmd_sweep(args) -> int:
     axes = [parse_vary(text) for text in args.vary]
     out = Path(args.out)
     counts = run_sweep(scenario, axes, out, workers=args.workers, scheduler=args.scheduler,
-                       progress=sys.stderr.isatty())
+                       progress=sys.stderr.isatty(), force=args.force)
     print(f"sweep of {counts['points']} points (simulated): {counts['ok']} ok, "
           f"{counts['failed']} failed, {counts['skipped']} finished earlier -> {out / TABLE_FILE}")
     if counts["lost"]:
@@ -350,6 +368,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", required=True)
     p.add_argument("--workers", type=int, default=None, help="local worker processes")
     p.add_argument("--scheduler", default=None, help="address of an existing Dask scheduler")
+    _force_option(p, "a sweep folder recoilsim wrote for a different sweep")
 
     p = _command(sub, "new", cmd_new, "write a commented template scenario NAME.toml", scenario=False)
     p.add_argument("name")
@@ -358,6 +377,26 @@ def build_parser() -> argparse.ArgumentParser:
     p = _command(sub, "figures", cmd_figures, "regenerate the README's figures", scenario=False)
     p.add_argument("--out", default="figures")
     return parser
+
+
+def _plain_numeric_warning(message, category, filename, lineno, file=None, line=None):
+    """Backstop of `main`: a numpy RuntimeWarning that leaked out, as one plain stderr line."""
+    if issubclass(category, RuntimeWarning):
+        print(f"recoilsim: warning: numerical trouble ({message}); results may be inaccurate, "
+              "please report the scenario", file=sys.stderr)
+    else:
+        print(f"recoilsim: warning: {message}", file=sys.stderr)
+
+
+def _interrupted(exc: BaseException) -> bool:
+    """Whether a KeyboardInterrupt stands behind `exc` (its cause or context chain)."""
+    seen = set()
+    while exc is not None and id(exc) not in seen:
+        if isinstance(exc, KeyboardInterrupt):
+            return True
+        seen.add(id(exc))
+        exc = exc.__cause__ or exc.__context__
+    return False
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -385,7 +424,9 @@ def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     os.environ.setdefault("MPLBACKEND", "Agg")  # files, not windows
     try:
-        return args.func(args)
+        with warnings.catch_warnings():
+            warnings.showwarning = _plain_numeric_warning
+            return args.func(args)
     except ScenarioError as exc:
         for line in exc.problems:
             print(f"recoilsim: {line}", file=sys.stderr)
@@ -404,6 +445,9 @@ def main(argv: list[str] | None = None) -> int:
               "estimate; lower the [bath] or [grid] sizes", file=sys.stderr)
         return EXIT_BAD_INPUT
     except Exception as exc:  # the last line of defence: one line, no traceback
+        if _interrupted(exc):  # Ctrl-C inside an import surfaces as the import's own error
+            print("recoilsim: interrupted; no partial output was left behind", file=sys.stderr)
+            return 130
         if os.environ.get("RECOILSIM_DEBUG"):
             raise
         print(f"recoilsim: internal error ({type(exc).__name__}: {exc}); rerun with "

@@ -10,6 +10,8 @@ The physics checks and `coupling.lifetime` -> strength come on top of it in
 from __future__ import annotations
 
 import math
+import stat
+import sys
 import tomllib
 from dataclasses import fields
 from pathlib import Path
@@ -20,6 +22,8 @@ from . import units as units_module
 from .schema import REQUIRED_TABLES, SCHEMA, TABLE_CLASSES, Scenario
 
 MAX_SCENARIO_BYTES = 1_000_000
+#: the path that means "read the scenario from standard input"
+STDIN_NAME = "-"
 
 # ---------------------------------------------------------------------------------------------
 # Reading.
@@ -32,7 +36,8 @@ def read_scenario_file(path: str | Path) -> dict:
     Parameters
     ----------
     path : str or Path
-        The scenario file: UTF-8 TOML text of at most MAX_SCENARIO_BYTES bytes.
+        The scenario file: UTF-8 TOML text of at most MAX_SCENARIO_BYTES bytes; "-"
+        (STDIN_NAME) reads standard input, and a pipe or FIFO is read up to that size.
 
     Returns
     -------
@@ -49,28 +54,65 @@ def read_scenario_file(path: str | Path) -> dict:
     ----------
     TOML v1.0.0 specification; Python documentation, ``tomllib``.
     """
+    if str(path) == STDIN_NAME:
+        data = _read_limited(sys.stdin.buffer, "standard input")
+        label = "standard input"
+        if not data:
+            raise ScenarioError(f"scenario from {label}: nothing was read; expected TOML with "
+                                "[detector], [field], [coupling] and [packet] tables")
+        return _decode(data, f"scenario from {label}")
     path = Path(path)
     try:
-        size = path.stat().st_size
+        info = path.stat()
     except OSError as exc:
         raise ScenarioError(f"scenario file {str(path)!r}: cannot be read ({exc.strerror})") from None
     if path.is_dir():
         raise ScenarioError(f"scenario file {str(path)!r}: is a folder, expected a TOML file")
+    if not stat.S_ISREG(info.st_mode):  # a pipe, FIFO or terminal: its size is known by reading
+        try:
+            with open(path, "rb") as stream:
+                data = _read_limited(stream, f"scenario file {str(path)!r}")
+        except OSError as exc:
+            raise ScenarioError(f"scenario file {str(path)!r}: cannot be read "
+                                f"({exc.strerror})") from None
+        if not data:
+            raise ScenarioError(f"scenario file {str(path)!r}: nothing was read from it; "
+                                "expected TOML with [detector], [field], [coupling] and [packet] "
+                                "tables")
+        return _decode(data, f"scenario file {str(path)!r}")
+    size = info.st_size
     if size == 0:
         raise ScenarioError(f"scenario file {str(path)!r}: is empty; expected TOML with "
                             "[detector], [field], [coupling] and [packet] tables")
     if size > MAX_SCENARIO_BYTES:
         raise ScenarioError(f"scenario file {str(path)!r}: is {size} bytes; scenario files are "
                             f"at most {MAX_SCENARIO_BYTES} bytes")
-    data = path.read_bytes()
+    try:
+        data = path.read_bytes()
+    except OSError as exc:
+        raise ScenarioError(f"scenario file {str(path)!r}: cannot be read ({exc.strerror})") from None
+    return _decode(data, f"scenario file {str(path)!r}")
+
+
+def _read_limited(stream, label: str) -> bytes:
+    """Up to MAX_SCENARIO_BYTES bytes of a stream, ScenarioError when it holds more."""
+    data = stream.read(MAX_SCENARIO_BYTES + 1)
+    if len(data) > MAX_SCENARIO_BYTES:
+        raise ScenarioError(f"{label}: holds more than {MAX_SCENARIO_BYTES} bytes; scenarios are "
+                            f"at most {MAX_SCENARIO_BYTES} bytes")
+    return data
+
+
+def _decode(data: bytes, label: str) -> dict:
+    """UTF-8 TOML bytes as a dict, ScenarioError naming `label` otherwise."""
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError:
-        raise ScenarioError(f"scenario file {str(path)!r}: is not UTF-8 text (binary file?)") from None
+        raise ScenarioError(f"{label}: is not UTF-8 text (binary file?)") from None
     try:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise ScenarioError(f"scenario file {str(path)!r}: is not valid TOML ({exc})") from None
+        raise ScenarioError(f"{label}: is not valid TOML ({exc})") from None
 
 
 def _typed(kind: str, value: Any, dims: int) -> tuple[Any, str | None]:
@@ -87,6 +129,8 @@ def _typed(kind: str, value: Any, dims: int) -> tuple[Any, str | None]:
         if isinstance(value, float) and value.is_integer():
             return int(value), None
         return None, "expected a whole number"
+    if isinstance(value, int) and not -1e308 < value < 1e308:  # float(value) would overflow
+        return None, "expected a finite number of at most 1e308 in size"
     if kind == "float":
         if isinstance(value, (int, float)) and math.isfinite(value):
             return float(value), None
@@ -98,7 +142,7 @@ def _typed(kind: str, value: Any, dims: int) -> tuple[Any, str | None]:
             if dims != 3:
                 return None, "a momentum vector [px, py, pz] needs field.dimensions = 3; use a number"
             ok = len(value) == 3 and all(isinstance(c, (int, float)) and not isinstance(c, bool)
-                                         and math.isfinite(c) for c in value)
+                                         and -1e308 < c < 1e308 for c in value)
             return (tuple(float(c) for c in value), None) if ok else (
                 None, "expected three finite numbers [px, py, pz]")
         return None, "expected a finite number"
@@ -200,7 +244,8 @@ def _build(t: dict[str, dict[str, Any]], title: str, source: Mapping[str, Any], 
         names = {f.name for f in fields(cls)}
         return cls(**{k: v for k, v in values.items() if k in names})
 
-    return Scenario(title=title, source=source, units=units,
+    notes = tuple(units_module.bare_number_notes(source, SCHEMA, units))
+    return Scenario(title=title, source=source, units=units, notes=notes,
                     **{name: make(name) for name in TABLE_CLASSES})
 
 

@@ -61,6 +61,30 @@ def _non_negative(v):
     return v >= 0
 
 
+def _between(low, high):
+    return lambda v: low <= v <= high
+
+
+#: the gap is the natural energy unit of a lab-unit scenario; a bare-number gap must stay inside
+#: this range so that every ratio the physics checks allow (sim.physics.checks.RATIO_RANGES) and
+#: its squares and cubes stay finite and normal in double precision
+GAP_RANGE = (1e-30, 1e30)
+#: largest count of sample times, trajectories or bath / grid nodes: beyond these a run needs far
+#: more memory or time than any machine has (the [bath] / [grid] estimate of `--dry-run` then
+#: decides within them)
+MAX_SAMPLES = 1_000_000
+MAX_TRAJECTORIES = 1_000_000
+MAX_MODES = 1_000_000
+MAX_NODES = 100_000
+MAX_FOCK = 1_000
+#: largest seed: numpy's generators take any non-negative integer, TOML writes 64-bit ones
+MAX_SEED = 2 ** 64 - 1
+
+
+def _count(low, high):
+    return Key("int", f"{low} .. {high}", _between(low, high))
+
+
 def _choice(*options):
     return lambda v: v in options
 
@@ -73,7 +97,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
     "detector": {
         "model": Key("str", _choices_text(*MODEL_NAMES), _choice(*MODEL_NAMES), required=True),
         "ground_mass": Key("float", "> 0", _positive, required=True, dimension="energy"),
-        "gap": Key("float", "> 0", _positive, required=True, dimension="energy"),
+        "gap": Key("float", f"> 0, within {GAP_RANGE[0]:g} .. {GAP_RANGE[1]:g} in natural units",
+                   _between(*GAP_RANGE), required=True, dimension="energy"),
     },
     "field": {
         "dimensions": Key("int", "1 | 3", _choice(1, 3), required=True),
@@ -100,25 +125,26 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "method": Key("str", _choices_text(*METHOD_NAMES), _choice(*METHOD_NAMES), "exact"),
         "t_max": Key("float", "> 0 (omit for five golden-rule lifetimes)", _positive,
                      dimension="time"),
-        "samples": Key("int", ">= 2", lambda v: v >= 2, 201),
-        "trajectories": Key("int", ">= 0", _non_negative, 0),
-        "seed": Key("int", ">= 0", _non_negative),
+        "samples": Key("int", f"2 .. {MAX_SAMPLES}", _between(2, MAX_SAMPLES), 201),
+        "trajectories": Key("int", f"0 .. {MAX_TRAJECTORIES}", _between(0, MAX_TRAJECTORIES), 0),
+        "seed": Key("int", f"0 .. {MAX_SEED}", _between(0, MAX_SEED)),
     },
     "bath": {
         "box_length": Key("float", "> 0", _positive, dimension="length"),
-        "modes": Key("int", ">= 2", lambda v: v >= 2),
+        "modes": _count(2, MAX_MODES),
         "window": Key("float", "> 0", _positive, dimension="momentum"),
-        "radial_nodes": Key("int", ">= 2", lambda v: v >= 2),
-        "angular_nodes": Key("int", ">= 2", lambda v: v >= 2),
-        "sectors": Key("int", ">= 1", lambda v: v >= 1),
-        "fock_modes": Key("int", ">= 1", lambda v: v >= 1),
-        "max_occupation": Key("int", ">= 1", lambda v: v >= 1),
-        "max_quanta": Key("int", ">= 1", lambda v: v >= 1),
+        "radial_nodes": _count(2, MAX_NODES),
+        "angular_nodes": _count(2, MAX_NODES),
+        "sectors": _count(1, MAX_NODES),
+        "fock_modes": _count(1, MAX_FOCK),
+        "max_occupation": _count(1, MAX_FOCK),
+        "max_quanta": _count(1, MAX_FOCK),
     },
     "grid": {
-        "points": Key("int", ">= 3", lambda v: v >= 3),
-        "span": Key("float", "> 0 (packet momentum widths each side)", _positive),
-        "directions": Key("int", ">= 2", lambda v: v >= 2),
+        "points": _count(3, MAX_MODES),
+        "span": Key("float", "> 0 and <= 1000 (packet momentum widths each side)",
+                    lambda v: 0 < v <= 1000),
+        "directions": _count(2, MAX_NODES),
     },
 }
 
@@ -340,6 +366,10 @@ class Scenario:
     units : sim.config.units.UnitSystem or None
         Natural energy unit and output units when the scenario writes units; None otherwise
         (not compared or hashed).
+    notes : tuple of str
+        Warnings about the scenario as written that did not stop it loading, one line each
+        (e.g. a bare number taken in natural units in a scenario that writes units); not
+        compared or hashed.
     """
 
     title: str
@@ -352,6 +382,7 @@ class Scenario:
     grid: GridConfig = GridConfig()
     source: Mapping[str, Any] = field(default_factory=dict, compare=False, hash=False)
     units: Any = field(default=None, compare=False, hash=False)  # config.units.UnitSystem | None
+    notes: tuple[str, ...] = field(default=(), compare=False, hash=False)
 
     @property
     def dimensions(self) -> int:

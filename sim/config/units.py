@@ -549,6 +549,72 @@ def resolve_units(raw: Mapping[str, Any], schema) -> tuple[Mapping[str, Any], Un
     return numeric, units, problems
 
 
+#: how a bare number at a dimensional key is read in a scenario that writes units (E0 = gap)
+_NATURAL_READING = {"energy": "{v} gap", "momentum": "{v} gap/c", "length": "{v} hbar c / gap",
+                    "time": "{v} hbar / gap"}
+
+
+def bare_number_notes(raw: Mapping[str, Any], schema, units: UnitSystem | None) -> list[str]:
+    """One note per bare number at a dimensional key of a scenario that writes units.
+
+    Such a number is read in natural units, E0 = detector.gap (``run.t_max = 130`` is
+    130 hbar / E0), which is rarely what a scenario written in lab units means.  Zero, the same
+    in every unit, gets no note.
+
+    Parameters
+    ----------
+    raw : mapping
+        The scenario as written (as TOML parses it).
+    schema : mapping
+        Table -> key -> :class:`sim.config.schema.Key`.
+    units : UnitSystem or None
+        The scenario's units (:func:`resolve_units`); None: no unit written, no note.
+
+    Returns
+    -------
+    list of str
+        E.g. "run.t_max = 130 taken as 130 hbar / gap = 5.4e-05 ns; write '130 ns'?"; the
+        value in the output unit of its dimension (:meth:`UnitSystem.factors`).
+    """
+    if units is None or not isinstance(raw, Mapping):
+        return []
+    time, momentum, length = units.factors()
+    energy_label = units.momentum_label.removesuffix("/c")
+    out_units = {"energy": (momentum, energy_label), "momentum": (momentum, units.momentum_label),
+                 "length": (length, units.length_label), "time": (time, units.time_label)}
+    notes = []
+    for table, keys in schema.items():
+        given = raw.get(table)
+        if not isinstance(given, Mapping):
+            continue
+        for key, value in given.items():
+            dimension = getattr(keys.get(key), "dimension", None)
+            if dimension is None:
+                continue
+            numbers = value if isinstance(value, list) else [value]
+            if not numbers or not all(isinstance(v, (int, float)) and not isinstance(v, bool)
+                                      and math.isfinite(v) for v in numbers):
+                continue
+            if all(v == 0 for v in numbers):
+                continue
+            factor, label = out_units[dimension]
+            shown = [f"{v:.6g}" for v in numbers]
+            converted = [f"{float(v) * factor:.3g}" for v in numbers]
+            if isinstance(value, list):
+                written = "[" + ", ".join(shown) + "]"
+                reading = _NATURAL_READING[dimension].format(v=written)
+                suggestion = "[" + ", ".join(f"'{c} {label}'" for c in shown) + "]"
+                result = "[" + ", ".join(converted) + f"] {label}"
+            else:
+                written = shown[0]
+                reading = _NATURAL_READING[dimension].format(v=written)
+                suggestion = f"'{written} {label}'"
+                result = f"{converted[0]} {label}"
+            notes.append(f"{table}.{key} = {written} taken as {reading} = {result}; "
+                         f"write {suggestion}?")
+    return notes
+
+
 def _copy_tables(raw: Mapping[str, Any]) -> dict:
     """A copy of the raw scenario whose tables (and lists in them) may be changed."""
     return {name: ({k: (list(v) if isinstance(v, list) else v) for k, v in value.items()}

@@ -12,6 +12,8 @@ import csv
 import io
 import json
 import math
+import os
+import re
 from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
@@ -26,37 +28,175 @@ from ..result import Result
 from .atomic import atomic_write_text, staged_folder
 
 
+#: the marker file recoilsim writes into every output folder it makes
+MARKER_FILE = ".recoilsim.json"
+#: at most this many foreign files are named in a refusal
+LISTED_FILES = 5
+
+
+def write_marker(folder: str | Path, kind: str, *, files: list[str] | None = None,
+                 folders: list[str] | None = None, folder_pattern: str | None = None) -> None:
+    """Write `folder`'s marker file: what recoilsim wrote there (last file of a folder).
+
+    Parameters
+    ----------
+    folder : str or Path
+        The folder (usually a stage).
+    kind : str
+        "run", "compare", "sweep", "sweep-point" or "demo".
+    files : list of str, optional
+        Names of the files recoilsim wrote directly in `folder`; default: every file there now.
+    folders : list of str, optional
+        Names of sub-folders recoilsim wrote (each carries its own marker).
+    folder_pattern : str, optional
+        A regular expression for further sub-folder names recoilsim writes later (e.g. a
+        sweep's points), each carrying its own marker.
+    """
+    folder = Path(folder)
+    if files is None:
+        files = sorted(p.name for p in folder.iterdir()
+                       if p.is_file() and not p.is_symlink() and p.name != MARKER_FILE)
+    write_json(folder / MARKER_FILE, {"written_by": "recoilsim", "simulated": True,
+                                      "kind": kind, "files": sorted(files),
+                                      "folders": sorted(folders or []),
+                                      "folder_pattern": folder_pattern})
+
+
+def read_marker(folder: str | Path) -> dict | None:
+    """The marker of `folder`, or None when it has none (or it is unreadable).
+
+    Parameters
+    ----------
+    folder : str or Path
+
+    Returns
+    -------
+    dict or None
+        The marker's contents (`write_marker`).
+    """
+    path = Path(folder) / MARKER_FILE
+    if path.is_symlink() or not path.is_file():
+        return None
+    try:
+        data = json.loads(path.read_text())
+    except (OSError, ValueError):
+        return None
+    if not isinstance(data, dict) or data.get("written_by") != "recoilsim":
+        return None
+    return data
+
+
+def foreign_entries(folder: str | Path) -> list[str] | None:
+    """Entries of `folder` recoilsim did not write; None when `folder` has no marker.
+
+    Known are the marker, the files it lists, its sub-folders (listed or matching its
+    pattern; each checked the same way) and recoilsim's own staging leftovers of those names
+    (`sim.io.atomic.stage_pattern`).  Symbolic links are never recoilsim's.
+
+    Parameters
+    ----------
+    folder : str or Path
+
+    Returns
+    -------
+    list of str or None
+        Paths relative to `folder` (a folder with a trailing "/"), sorted.
+    """
+    folder = Path(folder)
+    marker = read_marker(folder)
+    if marker is None:
+        return None
+    files = set(marker.get("files") or []) | {MARKER_FILE}
+    folders = set(marker.get("folders") or [])
+    pattern = re.compile(marker["folder_pattern"]) if marker.get("folder_pattern") else None
+
+    def subfolder(name: str) -> bool:
+        return name in folders or bool(pattern and pattern.fullmatch(name))
+
+    def staging(name: str) -> bool:
+        match = re.fullmatch(r"\.(.+)\.[a-z0-9_]{8}\.(part|old)", name)
+        return bool(match) and (match.group(1) in files or subfolder(match.group(1)))
+
+    foreign = []
+    for entry in sorted(folder.iterdir()):
+        name = entry.name
+        if entry.is_symlink():
+            foreign.append(name)
+        elif entry.is_dir() and subfolder(name):
+            inner = foreign_entries(entry)
+            foreign += [f"{name}/"] if inner is None else [f"{name}/{p}" for p in inner]
+        elif (entry.is_file() and name in files) or staging(name):
+            continue
+        else:
+            foreign.append(name + ("/" if entry.is_dir() else ""))
+    return foreign
+
+
+def _listed(names: list[str]) -> str:
+    shown = ", ".join(names[:LISTED_FILES])
+    return shown + (f" and {len(names) - LISTED_FILES} more" if len(names) > LISTED_FILES else "")
+
+
 def refuse_existing(out: str | Path, force: bool = False) -> None:
-    """Refuse an output folder that would overwrite something without `force`.
+    """Refuse an output folder that cannot be (re)placed: `force` replaces only recoilsim's own.
 
     Parameters
     ----------
     out : str or Path
     force : bool
-        Allow replacing a non-empty folder.
+        Allow replacing a non-empty folder that recoilsim wrote (its marker lists every file
+        in it).
 
     Raises
     ------
     OutputExists
-        If `out` is a file, or a non-empty folder and `force` is not given.
+        If `out` is a file, the current folder or one holding it; or a non-empty folder and
+        `force` is not given; or, with `force`, a folder without recoilsim's marker or holding
+        files recoilsim did not write (they are named).
     """
-    out = Path(out)
-    if out.exists() and not out.is_dir():
-        raise OutputExists(f"--out {str(out)!r}: exists and is not a folder")
-    if out.exists() and any(out.iterdir()) and not force:
-        raise OutputExists(f"--out {str(out)!r}: folder exists and is not empty; pass --force to "
-                           "replace it, or choose another folder")
+    shown = str(out)
+    out = Path(os.path.abspath(out))
+    if out.is_symlink() or (out.exists() and not out.is_dir()):
+        raise OutputExists(f"--out {shown!r}: exists and is not a folder; choose another name")
+    cwd = Path(os.path.abspath(os.getcwd()))
+    if out == cwd or out in cwd.parents:
+        raise OutputExists(f"--out {shown!r}: is the current folder or holds it, and recoilsim "
+                           "replaces its output folder as a whole; choose a new sub-folder, "
+                           "e.g. --out results")
+    if not out.exists() or not any(out.iterdir()):
+        return
+    foreign = foreign_entries(out)
+    if not force:
+        if foreign is None:
+            raise OutputExists(f"--out {shown!r}: folder is not empty and was not written by "
+                               f"recoilsim (no {MARKER_FILE}); choose another folder (--force "
+                               "replaces only recoilsim's own folders)")
+        raise OutputExists(f"--out {shown!r}: folder holds an earlier recoilsim output; pass "
+                           "--force to replace it, or choose another folder")
+    if foreign is None:
+        raise OutputExists(f"--out {shown!r}: --force replaces only a folder recoilsim wrote, "
+                           f"and this one has no {MARKER_FILE}; move its files away or choose "
+                           "another folder")
+    if foreign:
+        raise OutputExists(f"--out {shown!r}: --force refused, the folder holds files recoilsim "
+                           f"did not write: {_listed(foreign)}; move them away or choose "
+                           "another folder")
 
 
 @contextmanager
-def output_folder(out: str | Path, force: bool = False):
-    """A staged folder that replaces `out` when the block succeeds (refused first).
+def output_folder(out: str | Path, force: bool = False, kind: str = "run", folders=None):
+    """A staged folder that replaces `out` when the block succeeds (refused first and again
+    before the swap), its marker written last.
 
     Parameters
     ----------
     out : str or Path
     force : bool
-        Allow replacing a non-empty folder.
+        Allow replacing a non-empty folder recoilsim wrote (`refuse_existing`).
+    kind : str
+        The folder's kind for its marker (`write_marker`).
+    folders : list of str, optional
+        Sub-folders written into the stage (each with its own marker).
 
     Yields
     ------
@@ -66,11 +206,12 @@ def output_folder(out: str | Path, force: bool = False):
     Raises
     ------
     OutputExists
-        Before anything runs, if `out` holds files and `force` is not given.
+        Before anything runs (and again before the swap), if `out` may not be replaced.
     """
     refuse_existing(out, force)
-    with staged_folder(out) as stage:
+    with staged_folder(out, before_install=lambda: refuse_existing(out, force)) as stage:
         yield stage
+        write_marker(stage, kind, folders=folders)
 
 
 def _cell(value) -> str:

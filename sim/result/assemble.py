@@ -82,11 +82,11 @@ def assemble(method: str, scenario: Scenario, evo: Evolution) -> Result:
     excited_start = level_of(scenario.packet.internal) == EXCITED
     fitted = (fitted_rate(times, evo.excited) if excited_start
               else fitted_excitation_rate(times, evo.excited))
-    warnings = list(evo.warnings) + physics_warnings(scenario, golden) + norm_warning(evo.norm)
+    warnings = (list(getattr(scenario, "notes", ())) + list(evo.warnings)
+                + physics_warnings(scenario, golden)
+                + norm_warning(evo.norm, NORM_KEYS.get(method, "")))
     if excited_start and not np.isfinite(fitted):
-        warnings.append("rate_fitted: the decay curve has too few samples between "
-                        f"P_e = {FIT_WINDOW[1]} and {FIT_WINDOW[0]} for an exponential fit; raise "
-                        "run.t_max or run.samples")
+        warnings.append(fit_warning(scenario, golden, evo.excited))
     summary = {
         "title": scenario.title,
         "method": method,
@@ -111,6 +111,48 @@ def assemble(method: str, scenario: Scenario, evo: Evolution) -> Result:
                   momentum_grid=evo.momentum_grid, snapshot_times=evo.snapshot_times,
                   momentum_density=evo.momentum_density, initial_density=evo.initial_density,
                   summary=summary, tables=evo.tables, final_state=evo.final_state)
+
+
+#: the keys that refine each method's discretisation, for the norm-drift warning
+NORM_KEYS = {"exact": "bath.modes or bath.window",
+             "fock": "bath.max_quanta or bath.max_occupation",
+             "markov": "grid.points"}
+
+
+def fit_warning(scenario: Scenario, golden: float, excited: np.ndarray) -> str:
+    """Why the decay curve gave no fitted rate, with the key that would help.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    golden : float
+        The golden-rule rate (1 / time units).
+    excited : ndarray
+        The excited population over the sample times (dimensionless).
+
+    Returns
+    -------
+    str
+        With zero coupling or a zero golden-rule rate: nothing decays (run.t_max and
+        run.samples cannot help; coupling.strength, or the level and field keys, can); when
+        P_e never falls to FIT_WINDOW[1]: raise run.t_max; else too few samples fall in the
+        window: raise run.samples.
+    """
+    low, high = FIT_WINDOW
+    head = "rate_fitted: no exponential fit"
+    if scenario.coupling.strength == 0:
+        return (f"{head}: coupling.strength = 0, so the detector does not decay and there is no "
+                "rate to fit (a longer run.t_max or more run.samples will not change that); set "
+                "coupling.strength > 0 for a decay")
+    if not golden > 0:
+        return (f"{head}: the golden-rule rate is zero (no emission is on shell for this packet), "
+                "so there is no decay to fit and a longer run.t_max or more run.samples will not "
+                "help; raise detector.gap above field.mass or change the packet")
+    if float(np.min(excited)) > high:
+        return (f"{head}: P_e stays above {high} until t_max, so the decay has barely started; "
+                f"raise run.t_max (five golden-rule lifetimes are {5 / golden:.4g})")
+    return (f"{head}: fewer than three samples fall between P_e = {high} and {low}; raise "
+            "run.samples")
 
 
 def resolved_parameters(scenario: Scenario) -> dict:

@@ -21,6 +21,11 @@ from .common import sample_times
 MEMORY_SHARE = 0.8
 
 
+#: bytes held per sample time whatever the method: the sample times, a dozen observable series
+#: and the ODE solver's recorded output (Python lists of floats before they become arrays)
+SAMPLE_BYTES = 256.0
+
+
 @dataclass(frozen=True)
 class Estimate:
     """Size of a run before it starts: largest state count, memory (bytes), work (flops).
@@ -37,12 +42,64 @@ class Estimate:
     keys : tuple of str, optional
         Scenario keys that set the size, the most effective first; named in a refusal
         (`check_resources`).
+    breakdown : dict, optional
+        Scenario key -> the part of `memory_bytes` it drives (bytes); a term that is a product
+        of several sizes is credited to its largest factor.  Fixed overheads are left out.
+    values : dict, optional
+        Scenario key -> the value the run uses for it (the resolved value where the key was
+        left to an automatic choice), for messages.
     """
 
     states: int
     memory_bytes: float
     work: float
     keys: tuple[str, ...] = ()
+    breakdown: dict = field(default_factory=dict, hash=False, compare=False)
+    values: dict = field(default_factory=dict, hash=False, compare=False)
+
+    @property
+    def dominant_key(self) -> str:
+        """The scenario key that drives most of the memory.
+
+        Returns
+        -------
+        str
+            The largest entry of `breakdown`, else the first of `keys`, else "run.method".
+        """
+        if self.breakdown:
+            return max(self.breakdown, key=lambda k: self.breakdown[k])
+        return self.keys[0] if self.keys else "run.method"
+
+    def ordered_keys(self) -> tuple[str, ...]:
+        """The size keys with the dominant one first.
+
+        Returns
+        -------
+        tuple of str
+            `dominant_key`, then the other `keys` and `breakdown` keys in their order.
+        """
+        first = self.dominant_key
+        rest = [k for k in (*self.keys, *self.breakdown) if k != first]
+        return (first, *dict.fromkeys(rest))
+
+    def named(self, key: str) -> str:
+        """A key with the value the run uses for it, for messages.
+
+        Parameters
+        ----------
+        key : str
+            A scenario key ("table.name").
+
+        Returns
+        -------
+        str
+            "key = value" where the value is known (`values`), else the key alone.
+        """
+        if key not in self.values:
+            return key
+        value = self.values[key]
+        text = f"{value:.4g}" if isinstance(value, float) else f"{value!r}"
+        return f"{key} = {text}"
 
     def describe(self) -> str:
         """The estimate in words, for messages and ``--dry-run``.
@@ -54,6 +111,29 @@ class Estimate:
         """
         return (f"about {self.states:,} states, {self.memory_bytes / 2**30:.3g} GiB of memory, "
                 f"{self.work:.2g} floating-point operations")
+
+
+def credit(breakdown: dict, nbytes: float, factors: dict) -> None:
+    """Add a memory term to a breakdown, credited to its largest factor.
+
+    Parameters
+    ----------
+    breakdown : dict
+        Scenario key -> bytes (`Estimate.breakdown`), updated in place.
+    nbytes : float
+        The term (bytes).
+    factors : dict
+        Scenario key -> the count it contributes to the term (dimensionless); the term goes to
+        the key with the largest count (the first one on a tie).
+
+    Returns
+    -------
+    None
+    """
+    if not factors:
+        return
+    key = max(factors, key=lambda k: factors[k])
+    breakdown[key] = breakdown.get(key, 0.0) + float(nbytes)
 
 
 def available_memory() -> float:
@@ -75,6 +155,33 @@ def available_memory() -> float:
     return float(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
 
 
+def refusal(estimate: Estimate, method: str, available: float | None = None) -> str | None:
+    """Why the memory guard would refuse a run, or None when it would go ahead.
+
+    Parameters
+    ----------
+    estimate : Estimate
+        The run's size (`Solver.estimate`).
+    method : str
+        The method's name, for the message.
+    available : float, optional
+        Memory available (bytes); default `available_memory()`.
+
+    Returns
+    -------
+    str or None
+        None when ``estimate.memory_bytes <= MEMORY_SHARE * available``; else one line that
+        starts with the dominant key and its value (`Estimate.dominant_key`), gives the estimate
+        and the limit, and lists the keys to lower, the dominant one first.
+    """
+    limit = MEMORY_SHARE * (available_memory() if available is None else available)
+    if estimate.memory_bytes <= limit:
+        return None
+    keys = estimate.ordered_keys()
+    return (f"{estimate.named(keys[0])}: method {method!r} would need {estimate.describe()}, "
+            f"more than the {limit / 2**30:.3g} GiB available; lower {', '.join(keys)}")
+
+
 def check_resources(estimate: Estimate, method: str) -> None:
     """Refuse a run whose estimated memory exceeds MEMORY_SHARE of what is available.
 
@@ -92,15 +199,12 @@ def check_resources(estimate: Estimate, method: str) -> None:
     Raises
     ------
     ResourceError
-        If ``estimate.memory_bytes > MEMORY_SHARE * available_memory()``; the message names the
-        first of `estimate.keys` (or "run.method") and the keys to lower.
+        If ``estimate.memory_bytes > MEMORY_SHARE * available_memory()`` (`refusal`); the
+        message starts with the dominant key and its value and lists the keys to lower.
     """
-    limit = MEMORY_SHARE * available_memory()
-    if estimate.memory_bytes > limit:
-        keys = ", ".join(estimate.keys) or "the discretisation keys"
-        raise ResourceError(f"{(estimate.keys or ('run.method',))[0]}: method {method!r} would need "
-                            f"{estimate.describe()}, more than the {limit / 2**30:.3g} GiB "
-                            f"available; lower {keys}")
+    reason = refusal(estimate, method)
+    if reason is not None:
+        raise ResourceError(reason)
 
 
 @dataclass
@@ -232,12 +336,13 @@ class Solver:
         Returns
         -------
         Estimate
-            The base guess: run.samples states, 64 bytes and 1e3 floating-point operations per
-            sample time, sized by the key "run.samples".
+            The base guess: run.samples states, SAMPLE_BYTES bytes and 1e3 floating-point
+            operations per sample time, sized by the key "run.samples".
         """
         samples = self.scenario.run.samples
-        return Estimate(states=samples, memory_bytes=64.0 * samples, work=1e3 * samples,
-                        keys=("run.samples",))
+        return Estimate(states=samples, memory_bytes=SAMPLE_BYTES * samples, work=1e3 * samples,
+                        keys=("run.samples",), breakdown={"run.samples": SAMPLE_BYTES * samples},
+                        values={"run.samples": samples})
 
     def run(self) -> Evolution:
         """Check the memory estimate, evolve over the scenario's sample times, time it.

@@ -33,12 +33,45 @@ RECURRENCE_SLACK = 1.05
 # --- times ------------------------------------------------------------------------------------
 
 
+def last_sample_time(scenario: Scenario) -> float:
+    """t_max, the last sample time, without building the sample times (time units).
+
+    `run.t_max`, or by default AUTO_LIFETIMES golden-rule lifetimes,
+    t_max = AUTO_LIFETIMES / Gamma_packet, with Gamma_packet the golden-rule rate averaged over
+    the packet (`sim.physics.golden_rule.packet_rate`, 1 / time units).  Costs nothing in
+    proportion to run.samples, so estimates can call it for any sample count.
+
+    Parameters
+    ----------
+    scenario : Scenario
+
+    Returns
+    -------
+    float
+        t_max (time units).
+
+    Raises
+    ------
+    ScenarioError
+        If run.t_max is missing and the golden-rule rate is zero (no automatic choice).
+    """
+    t_max = scenario.run.t_max
+    if t_max is None:
+        rate = packet_rate(scenario)
+        if not rate > 0:
+            hint = (" (coupling.strength = 0: nothing decays)"
+                    if scenario.coupling.strength == 0 else "")
+            raise ScenarioError("run.t_max: missing, and the golden-rule rate is zero so no "
+                                f"automatic choice exists{hint}; allowed: > 0")
+        t_max = AUTO_LIFETIMES / rate
+    return float(t_max)
+
+
 def sample_times(scenario: Scenario) -> np.ndarray:
     """Sample times t_n = n t_max / (samples - 1), n = 0 .. samples - 1 (time units).
 
-    t_max is `run.t_max`, or by default AUTO_LIFETIMES golden-rule lifetimes,
-    t_max = AUTO_LIFETIMES / Gamma_packet, with Gamma_packet the golden-rule rate averaged over
-    the packet (`sim.physics.golden_rule.packet_rate`, 1 / time units).
+    t_max is `last_sample_time`: `run.t_max`, or by default AUTO_LIFETIMES golden-rule
+    lifetimes.
 
     Parameters
     ----------
@@ -54,14 +87,7 @@ def sample_times(scenario: Scenario) -> np.ndarray:
     ScenarioError
         If run.t_max is missing and the golden-rule rate is zero (no automatic choice).
     """
-    t_max = scenario.run.t_max
-    if t_max is None:
-        rate = packet_rate(scenario)
-        if not rate > 0:
-            raise ScenarioError("run.t_max: missing, and the golden-rule rate is zero so no "
-                                "automatic choice exists; allowed: > 0")
-        t_max = AUTO_LIFETIMES / rate
-    return np.linspace(0.0, t_max, scenario.run.samples)
+    return np.linspace(0.0, last_sample_time(scenario), scenario.run.samples)
 
 
 def snapshot_indices(samples: int, count: int = SNAPSHOTS) -> np.ndarray:
@@ -296,13 +322,16 @@ def recurrence_warning(t_max: float, recurrence: float, what: str, key: str) -> 
 # --- warnings every method shares ---------------------------------------------------------------
 
 
-def norm_warning(norm: np.ndarray | None) -> list[str]:
+def norm_warning(norm: np.ndarray | None, keys: str = "") -> list[str]:
     """A warning when the total probability departs from 1 by more than NORM_TOLERANCE.
 
     Parameters
     ----------
     norm : ndarray or None
         Total probability over time (dimensionless), or None when not checked.
+    keys : str, optional
+        The scenario keys that refine the method's discretisation, for the message (e.g.
+        "bath.modes or bath.window"); the message names no key when empty.
 
     Returns
     -------
@@ -315,7 +344,8 @@ def norm_warning(norm: np.ndarray | None) -> list[str]:
     if drift <= NORM_TOLERANCE:
         return []
     return [f"norm drift: total probability departs from 1 by {drift:.2e} "
-            f"(tolerance {NORM_TOLERANCE:g}); refine the discretisation"]
+            f"(tolerance {NORM_TOLERANCE:g}); refine the discretisation"
+            + (f" (raise {keys})" if keys else "")]
 
 
 def galilean_reach_speed(scenario: Scenario, packet: Packet) -> float:
@@ -359,10 +389,13 @@ def physics_warnings(scenario: Scenario, rate: float) -> list[str]:
     gap = scenario.detector.gap
     if rate / gap > WEAK_COUPLING_LIMIT:
         out.append(f"perturbation parameter Gamma/Omega = {rate / gap:.3g} is large (above "
-                   f"{WEAK_COUPLING_LIMIT:g}): golden-rule and Markov predictions are unreliable here")
+                   f"{WEAK_COUPLING_LIMIT:g}): golden-rule and Markov predictions are unreliable here; lower "
+                   "coupling.strength (or raise coupling.lifetime), or use run.method = \"exact\" "
+                   "or \"fock\"")
     fastest = galilean_reach_speed(scenario, packet_for(scenario))
     if scenario.detector.model == "galilean" and scenario.coupling.rotating_wave and fastest > 1:
         out.append(f"rotating-wave approximation with a galilean detector reaching |v| = "
                    f"{fastest:.3g} > 1: counter-rotating terms are resonant there (anomalous Doppler "
-                   "emission) and are dropped; use method = \"fock\" with rotating_wave = false")
+                   "emission) and are dropped; use run.method = \"fock\" with "
+                   "coupling.rotating_wave = false")
     return out

@@ -134,7 +134,7 @@ def compare_to_folder(scenario, out, force: bool = False) -> Path:
         The output folder, replaced as a whole once every file is written; the times of
         compare.csv are in output units for a scenario with units, natural units otherwise.
     force : bool
-        Replace a non-empty `out`.
+        Replace a non-empty `out` that recoilsim wrote (`sim.io.writers.refuse_existing`).
 
     Returns
     -------
@@ -144,7 +144,8 @@ def compare_to_folder(scenario, out, force: bool = False) -> Path:
     Raises
     ------
     OutputExists
-        If `out` is a file, or a non-empty folder and `force` is not given (before any run).
+        Before any run, if `out` is a file or the current folder, or a non-empty folder and
+        `force` is not given, or not recoilsim's own (or holding files it did not write).
     ScenarioError
         If the scenario does not load or validate, or a method other than those of `REFUSING`
         refuses it.
@@ -152,7 +153,7 @@ def compare_to_folder(scenario, out, force: bool = False) -> Path:
     scenario = load_scenario(scenario)
     units = scenario.units
     out = Path(out)
-    with output_folder(out, force) as stage:  # refuses a full folder before any run
+    with output_folder(out, force, kind="compare") as stage:  # refused before any run
         results, skipped = run_methods(scenario)
         times, curves = common_curves(results)
         columns = {"t": units.to_output("t", times) if units else times, **curves}

@@ -9,11 +9,10 @@ The demo folder holds
 
 from __future__ import annotations
 
-import os
-import shutil
 import tempfile
 from pathlib import Path
 
+from ..io.atomic import atomic_copy
 from ..io.writers import output_folder, write_json
 from ..physics.checks import load_scenario
 from ..result import run
@@ -24,6 +23,8 @@ from .sweep import parse_vary, run_sweep
 
 #: the demo's sweep: packet widths in Compton wavelengths (four points, log-spaced)
 DEMO_SWEEP = "packet.width=2:50:4log"
+#: the demo folder's sub-folders (each a recoilsim folder with its own marker)
+DEMO_FOLDERS = ["exact", "compare", "sweep"]
 #: figures the README shows: (file in figures/, where it comes from in the demo folder)
 README_FIGURES = {
     "rates.png": "rates.png",
@@ -102,7 +103,7 @@ def run_demo(out: Path, force: bool = False) -> dict:
     out : Path
         The demo folder, replaced as a whole once complete.
     force : bool
-        Replace a non-empty `out`.
+        Replace a non-empty `out` that recoilsim wrote (`sim.io.writers.refuse_existing`).
 
     Returns
     -------
@@ -113,10 +114,11 @@ def run_demo(out: Path, force: bool = False) -> dict:
     Raises
     ------
     OutputExists
-        If `out` is a file, or a non-empty folder and `force` is not given.
+        If `out` is a file or the current folder, or a non-empty folder and `force` is not
+        given, or not recoilsim's own (or holding files it did not write).
     """
     scenario = default_scenario()
-    with output_folder(out, force=force) as stage:
+    with output_folder(out, force=force, kind="demo", folders=DEMO_FOLDERS) as stage:
         report = build_demo(stage, scenario)
     return {"title": scenario.title, **report}
 
@@ -139,8 +141,6 @@ def make_readme_figures(out: Path) -> list[Path]:
     with tempfile.TemporaryDirectory() as tmp:
         build_demo(Path(tmp))
         for name, source in README_FIGURES.items():
-            staged = out / f".{name}.part"
-            shutil.copyfile(Path(tmp) / source, staged)
-            os.replace(staged, out / name)
+            atomic_copy(Path(tmp) / source, out / name)
             written.append(out / name)
     return written

@@ -24,7 +24,7 @@ def write_result(result: Result, out: str | Path, *, force: bool = False, figure
     out : str or Path
         The run folder (replaced only with `force`).
     force : bool
-        Replace a non-empty `out`.
+        Replace a non-empty `out` that recoilsim wrote (`sim.io.writers.refuse_existing`).
     figures : bool
         Draw the registered figures (`sim.plotting.FIGURES`) too.
     extra_summary : dict, optional
@@ -38,9 +38,10 @@ def write_result(result: Result, out: str | Path, *, force: bool = False, figure
     Raises
     ------
     OutputExists
-        If `out` is a file, or a non-empty folder and `force` is not given.
+        If `out` is a file or the current folder, or a non-empty folder and `force` is not
+        given, or not recoilsim's own (or holding files it did not write).
     """
-    with output_folder(out, force) as stage:
+    with output_folder(out, force, kind="run") as stage:
         summary = write_tables(result, stage, extra_summary)
         if figures:
             summary["figures"] = result_figures(result, stage)
@@ -82,7 +83,7 @@ def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bo
     check : bool
         Also run the refined solver (`Solver.refined`) and add "convergence" to the summary.
     force : bool
-        Replace a non-empty `out`.
+        Replace a non-empty `out` that recoilsim wrote (`sim.io.writers.refuse_existing`).
     progress : bool
         Show a progress bar on stderr during long runs.
 
@@ -94,7 +95,8 @@ def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bo
     Raises
     ------
     OutputExists
-        If `out` is a file, or a non-empty folder and `force` is not given (before the run).
+        Before the run, if `out` is a file or the current folder, or a non-empty folder and
+        `force` is not given, or not recoilsim's own (or holding files it did not write).
     ScenarioError
         If the scenario does not load or validate, or its method cannot honour it
         (`ResourceError` for a run too large for the memory).

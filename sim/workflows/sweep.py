@@ -33,8 +33,12 @@ import itertools
 import json
 import math
 import os
+import re
 import shutil
+import signal
 import sys
+import tempfile
+import time
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -48,8 +52,9 @@ from tqdm import tqdm
 from ..config.schema import SCHEMA, Scenario
 from ..config.units import QUANTITY_TEXT
 from ..errors import ScenarioError, UsageError
-from ..io.atomic import atomic_write_text, staged_folder
-from ..io.writers import csv_text, json_safe, write_json
+from ..io.atomic import atomic_write_text, remove_stale_stages
+from ..io.writers import (csv_text, json_safe, output_folder, refuse_existing,
+                          write_json, write_marker)
 from ..physics.checks import with_keys
 from ..result import run
 from .run import write_result
@@ -62,6 +67,13 @@ DEFINITION_FILE = "sweep.json"
 TABLE_FILE = "sweep.csv"
 FAILED_FILE = "failed.json"
 LOCK_FILE = ".sweep.lock"
+#: names of the point folders (the sweep folder's marker lists them by this pattern)
+POINT_PATTERN = r"point-[0-9]{4,}"
+#: staging leftovers recoilsim makes inside a sweep folder (points and its own files)
+STALE_PATTERN = re.compile(r"\.(" + POINT_PATTERN + r"|sweep\.csv|sweep\.json|\.recoilsim\.json)"
+                           r"\.[a-z0-9_]{8}\.(part|old)")
+#: seconds worker processes get to clean up after a terminate, before they are killed
+WORKER_GRACE = 0.8
 #: seconds to wait for a Dask scheduler before giving up
 SCHEDULER_TIMEOUT = 20
 #: at most this many invalid points are listed before the sweep is refused
@@ -325,7 +337,7 @@ def run_point(task: PointTask) -> int:
         write_result(result, folder, force=True, extra_summary={"sweep_point": record})
     except Exception as exc:  # noqa: BLE001 - recorded in failed.json and sweep.csv
         failure = {"sweep_point": record, "status": f"failed: {one_line(exc)}", "simulated": True}
-        with staged_folder(folder) as stage:
+        with output_folder(folder, force=True, kind="sweep-point") as stage:
             write_json(stage / FAILED_FILE, failure)
     return task.index
 
@@ -385,8 +397,17 @@ def definition(scenario: Scenario, axes: list[Axis]) -> dict:
                       "vary": [[a.key, list(a.values)] for a in axes]})
 
 
+def _replace_owned(out: Path, shown: str) -> None:
+    """Remove the recoilsim folder `out` for a new sweep (`--force`): refused unless recoilsim
+    wrote every file in it (`refuse_existing`); set aside by one rename, then removed."""
+    refuse_existing(shown, force=True)
+    old = Path(tempfile.mkdtemp(prefix=f".{out.name}.", suffix=".old", dir=out.parent))
+    os.replace(out, old / "previous")
+    shutil.rmtree(old, ignore_errors=True)
+
+
 @contextmanager
-def sweep_folder(out: Path, ident: dict):
+def sweep_folder(out: Path, ident: dict, force: bool = False):
     """Lock DIR for this sweep, check it holds this sweep (or nothing), clear stale stages.
 
     Parameters
@@ -396,6 +417,9 @@ def sweep_folder(out: Path, ident: dict):
     ident : dict
         The sweep's definition (`definition`): written to sweep.json in a new folder, compared
         with it in an existing one.
+    force : bool
+        Replace a folder recoilsim wrote (its marker lists every file in it) that holds a
+        different sweep or no sweep.
 
     Yields
     ------
@@ -405,39 +429,50 @@ def sweep_folder(out: Path, ident: dict):
     Raises
     ------
     UsageError
-        If `out` is a file, another sweep holds its lock, it holds a different sweep, or it
-        is not empty and holds no sweep.
+        If `out` is a file, another sweep holds its lock, it holds a different sweep (without
+        `force`), or it is not empty and holds no sweep (without `force`).
+    OutputExists
+        With `force`, if `out` is not recoilsim's own folder or holds files recoilsim did not
+        write (they are named), or is the current folder.
     """
-    if out.exists() and not out.is_dir():
-        raise UsageError(f"--out {str(out)!r}: exists and is not a folder")
+    shown = str(out)
+    out = Path(os.path.abspath(out))
+    if out.is_symlink() or (out.exists() and not out.is_dir()):
+        raise UsageError(f"--out {shown!r}: exists and is not a folder")
+    remove_stale_stages(out.parent, out.name)
+    definition_file = out / DEFINITION_FILE
+    if out.is_dir() and not definition_file.is_file() and any(
+            p.name != LOCK_FILE for p in out.iterdir()):
+        if not force:
+            raise UsageError(f"--out {shown!r}: folder is not empty and holds no sweep; "
+                             "choose another folder")
+        _replace_owned(out, shown)
     out.mkdir(parents=True, exist_ok=True)
-    with open(out / LOCK_FILE, "w") as lock:
+    lock = open(out / LOCK_FILE, "w")
+    try:
         try:
             fcntl.flock(lock, fcntl.LOCK_EX | fcntl.LOCK_NB)
         except BlockingIOError:
-            raise UsageError(f"--out {str(out)!r}: another sweep is writing to this "
-                                  "folder") from None
-        marker = out / DEFINITION_FILE
-        if marker.is_file():
-            if json.loads(marker.read_text()) != ident:
-                raise UsageError(f"--out {str(out)!r}: holds a different sweep (scenario "
-                                      "or --vary changed); choose another folder")
-        elif any(p.name != LOCK_FILE for p in out.iterdir()):
-            raise UsageError(f"--out {str(out)!r}: folder is not empty and holds no sweep; "
-                                  "choose another folder")
-        else:
-            write_json(marker, ident)
-        for stale in [*out.glob(".*.part"), *out.glob(".*.old")]:
-            _remove(stale)
+            raise UsageError(f"--out {shown!r}: another sweep is writing to this "
+                             "folder") from None
+        if definition_file.is_file() and json.loads(definition_file.read_text()) != ident:
+            if not force:
+                raise UsageError(f"--out {shown!r}: holds a different sweep (scenario or "
+                                 "--vary changed); pass --force to replace it, or choose "
+                                 "another folder")
+            _replace_owned(out, shown)
+            lock.close()
+            out.mkdir(parents=True)
+            lock = open(out / LOCK_FILE, "w")
+            fcntl.flock(lock, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        if not definition_file.is_file():
+            write_json(definition_file, ident)
+            write_marker(out, "sweep", files=[DEFINITION_FILE, TABLE_FILE, LOCK_FILE],
+                         folder_pattern=POINT_PATTERN)
+        remove_stale_stages(out, pattern=STALE_PATTERN)
         yield out
-
-
-def _remove(path: Path) -> None:
-    """Remove a leftover staging file or folder of a killed run."""
-    if path.is_dir():
-        shutil.rmtree(path, ignore_errors=True)
-    else:
-        path.unlink(missing_ok=True)
+    finally:
+        lock.close()
 
 
 def write_table(out: Path, keys: list[str], rows: dict[int, dict]) -> None:
@@ -489,6 +524,50 @@ def local_workers(requested: int | None) -> int:
     return requested
 
 
+#: set in a worker process once it is asked to stop
+_STOPPING = False
+
+
+def _worker_setup() -> None:
+    """In a local worker: ignore Ctrl-C (the main process stops the workers) and turn SIGTERM
+    into SystemExit, so the point being written removes its stage on the way out."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+    def stop(signum, frame):
+        global _STOPPING
+        _STOPPING = True
+        raise SystemExit(128 + signum)
+
+    signal.signal(signal.SIGTERM, stop)
+
+
+def _pool_point(task: PointTask) -> int:
+    """`run_point` in a local worker; a worker asked to stop exits at once."""
+    if _STOPPING:
+        os._exit(143)
+    try:
+        return run_point(task)
+    except SystemExit:  # SIGTERM: the stage is already removed
+        os._exit(143)
+
+
+def _stop_pool(pool: ProcessPoolExecutor) -> None:
+    """Cancel the pool's pending points, terminate its workers (killed after `WORKER_GRACE`
+    seconds) and wait for them to end."""
+    processes = list((getattr(pool, "_processes", None) or {}).values())
+    pool.shutdown(wait=False, cancel_futures=True)
+    for process in processes:
+        if process.is_alive():
+            process.terminate()
+    deadline = time.monotonic() + WORKER_GRACE
+    for process in processes:
+        process.join(max(0.0, deadline - time.monotonic()))
+    for process in processes:
+        if process.is_alive():
+            process.kill()
+            process.join(1.0)
+
+
 def finished_indices(tasks: list[PointTask], workers: int, scheduler: str | None):
     """Run the tasks; yield (index, None) as each finishes, (None, error) for a lost one.
 
@@ -527,26 +606,37 @@ def finished_indices(tasks: list[PointTask], workers: int, scheduler: str | None
                              f"({one_line(exc)})") from None
         with client:
             futures = client.map(run_point, tasks, pure=False)
-            for future in dask_completed(futures):
-                try:
-                    yield future.result(), None
-                except Exception as exc:  # noqa: BLE001 - a lost worker: rerun resumes it
-                    yield None, exc
+            try:
+                for future in dask_completed(futures):
+                    try:
+                        yield future.result(), None
+                    except Exception as exc:  # noqa: BLE001 - a lost worker: rerun resumes it
+                        yield None, exc
+            except BaseException:
+                client.cancel(futures)
+                raise
     elif workers == 1 or len(tasks) == 1:
         for task in tasks:
             yield run_point(task), None
     else:
-        with ProcessPoolExecutor(min(workers, len(tasks)), mp_context=get_context("spawn")) as pool:
-            futures = [pool.submit(run_point, task) for task in tasks]
+        pool = ProcessPoolExecutor(min(workers, len(tasks)), mp_context=get_context("spawn"),
+                                   initializer=_worker_setup)
+        try:
+            futures = [pool.submit(_pool_point, task) for task in tasks]
             for future in as_completed(futures):
                 try:
                     yield future.result(), None
                 except Exception as exc:  # noqa: BLE001 - a dead worker process
                     yield None, exc
+        except BaseException:  # Ctrl-C, or the caller stopped early: stop now, not later
+            _stop_pool(pool)
+            raise
+        pool.shutdown(wait=True)
 
 
 def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int | None = None,
-              scheduler: str | None = None, progress: bool = False) -> dict[str, Any]:
+              scheduler: str | None = None, progress: bool = False,
+              force: bool = False) -> dict[str, Any]:
     """Run (or resume) a sweep into `out`; returns counts of its points.
 
     Parameters
@@ -563,6 +653,8 @@ def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int |
         Address of an existing Dask scheduler whose workers share `out`'s file system.
     progress : bool
         Show a progress bar on stderr.
+    force : bool
+        Replace a folder recoilsim wrote that holds a different sweep (`sweep_folder`).
 
     Returns
     -------
@@ -585,7 +677,7 @@ def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int |
         raise ScenarioError(problems)
     n_workers = 1 if scheduler else local_workers(workers)
     keys = [axis.key for axis in axes]
-    with sweep_folder(out, definition(scenario, axes)):
+    with sweep_folder(out, definition(scenario, axes), force):
         folders = [out / folder_name(i, len(points)) for i in range(len(points))]
         rows = {i: row for i, (f, v) in enumerate(zip(folders, points))
                 if (row := point_row(f, v)) is not None}
@@ -594,15 +686,23 @@ def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int |
                  for i in range(len(points)) if i not in done]
         write_table(out, keys, rows)
         lost = []
-        with tqdm(total=len(points), initial=len(done), unit="point", disable=not progress,
-                  file=sys.stderr) as bar:
-            for index, error in finished_indices(tasks, n_workers, scheduler):
-                if error is not None:
-                    lost.append(one_line(error))
-                    continue
-                rows[index] = point_row(folders[index], points[index])
-                write_table(out, keys, rows)
-                bar.update()
+        try:
+            with tqdm(total=len(points), initial=len(done), unit="point", disable=not progress,
+                      file=sys.stderr) as bar:
+                for index, error in finished_indices(tasks, n_workers, scheduler):
+                    if error is not None:
+                        lost.append(one_line(error))
+                        continue
+                    rows[index] = point_row(folders[index], points[index])
+                    write_table(out, keys, rows)
+                    bar.update()
+        except BaseException:
+            # interrupted: the workers are stopped; list exactly the points finished on disk
+            remove_stale_stages(out, pattern=STALE_PATTERN)
+            rows = {i: row for i, (f, v) in enumerate(zip(folders, points))
+                    if (row := point_row(f, v)) is not None}
+            write_table(out, keys, rows)
+            raise
     failed = sum(1 for row in rows.values() if row["status"] != "ok")
     return {"points": len(points), "ok": len(rows) - failed, "failed": failed,
             "lost": len(lost), "lost_errors": lost, "skipped": len(done)}

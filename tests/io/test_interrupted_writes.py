@@ -41,7 +41,9 @@ def assert_complete_run(folder: Path, samples: int) -> None:
     """A finished run folder: the contract files, parseable, the population table whole."""
     names = {p.name for p in folder.iterdir()}
     assert {"population.csv", "recoil.csv", "momentum.csv", "summary.json"} <= names
-    assert not [n for n in names if n.endswith(".part") or n.startswith(".")], names
+    # no temporary files; the one hidden file is recoilsim's marker
+    assert not [n for n in names if n.endswith(".part") or (n.startswith(".") and
+                                                            n != ".recoilsim.json")], names
     summary = json.loads((folder / "summary.json").read_text())
     assert summary["simulated"] is True
     assert len((folder / "population.csv").read_text().splitlines()) == samples + 1

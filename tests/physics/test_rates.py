@@ -1,14 +1,14 @@
 """Golden-rule rates against closed forms.
 
-Sources: Fermi's golden rule (Sakurai, Modern Quantum Mechanics, sec. 5.6) with its delta function
-resolved by energy and momentum conservation, worked out beside each test; the static-detector 3D
-rate lambda^2 Omega / (2 pi) is the standard textbook result for a monopole (Unruh-DeWitt-type)
-detector (e.g. Birrell & Davies, Quantum Fields in Curved Space, CUP 1982, sec. 3.3, from memory);
-the one-particle rest rate is the two-body decay rate |M|^2 k* / (8 pi M^2) (Particle Data Group,
-Review of Particle Physics, "Kinematics" review, from memory); the covariance laws
-Gamma(p) = Gamma(0) E/M and Gamma(0) M/E follow from the Lorentz invariance of two-body phase
-space (Peskin & Schroeder, An Introduction to Quantum Field Theory, 1995, sec. 4.5, from memory).
-Detailed balance is the KMS condition (common practice).
+Sources: Fermi's golden rule (Sakurai, Modern Quantum Mechanics, revised ed. 1994, sec. 5.6, from
+memory) with its delta function resolved by energy and momentum conservation, worked out beside
+each test; the static-detector 3D rate lambda^2 Omega / (2 pi) is the rate of a monopole
+(Unruh-DeWitt-type) detector at rest in the vacuum (Birrell & Davies, Quantum Fields in Curved
+Space, CUP 1982, sec. 3.3, from memory); the one-particle rest rate is the two-body decay rate
+|M|^2 k* / (8 pi M^2) (Particle Data Group, Review of Particle Physics, "Kinematics" review, from
+memory); the covariance laws Gamma(p) = Gamma(0) E/M and Gamma(0) M/E follow from the Lorentz
+invariance of two-body phase space (Peskin & Schroeder, An Introduction to Quantum Field Theory,
+1995, sec. 4.5, from memory).  Detailed balance is the KMS condition (common practice).
 """
 
 import math
@@ -101,10 +101,10 @@ def test_galilean_faster_than_light_still_emits(make_scenario):
                                            (1, lambda lam, gap: lam ** 2 / gap)])
 @pytest.mark.parametrize("gap", [0.3, 1.0])
 def test_static_limit_of_all_models(make_scenario, model, dims, expected, gap):
-    # static detector, 3D lambda^2 Omega / (2 pi) (standard textbook result; Birrell & Davies
-    # sec. 3.3, from memory); 1D lambda^2 / Omega from the golden rule, derived here: two roots
-    # k = +-Omega, each 2 pi lambda^2 / (2 pi 2 Omega).  An infinitely heavy detector: the recoil
-    # corrections are O(Omega/M).
+    # static detector, 3D lambda^2 Omega / (2 pi) (Birrell & Davies, Quantum Fields in Curved
+    # Space, CUP 1982, sec. 3.3, from memory); 1D lambda^2 / Omega from the golden rule, derived
+    # here: two roots k = +-Omega, each 2 pi lambda^2 / (2 pi 2 Omega).  An infinitely heavy
+    # detector: the recoil corrections are O(Omega/M).
     lam, mass = 0.2, 1e9
     rate = rest_rate(load_scenario(make_scenario(RATES, model=model, dims=dims, ground_mass=mass,
                                                  gap=gap, strength=lam)))

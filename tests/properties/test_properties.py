@@ -8,6 +8,7 @@ are marked slow.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -144,12 +145,34 @@ def check_probabilities(s):
         purity = evo.purity[np.isfinite(evo.purity)]
         assert np.all(purity >= -ROUNDING) and np.all(purity <= 1 + ROUNDING)
     if evo.norm is not None:
-        # excited + ground = 1: the solver's own total probability; any drift beyond the
-        # tolerance must be reported in the run's warnings
+        # excited + ground = 1: the solver's own total probability.  On a valid draw the drift
+        # stays within the tolerance and no drift warning is raised (the warning path itself is
+        # checked by test_an_injected_norm_drift_is_reported)
         drift = float(np.max(np.abs(evo.norm - 1.0)))
-        assert drift < NORM_TOLERANCE or any(w.startswith("norm drift") for w in result.warnings)
+        assert drift <= NORM_TOLERANCE, drift
+        assert not any(w.startswith("norm drift") for w in result.warnings)
         return drift
     return None
+
+
+def test_an_injected_norm_drift_is_reported():
+    # a drift of +-10 x NORM_TOLERANCE injected into a real evolution must produce the "norm
+    # drift" warning; the untouched evolution and a drift of half the tolerance must not (one
+    # small fixed exact run)
+    raw = build_scenario(model="newton-wigner", ground_mass=1.0, gap=0.5, strength=0.05,
+                         width=20.0, momentum=0.0, method="exact", t_max=100.0, samples=11,
+                         field__mass=0.02, field__cutoff=1.0, bath__sectors=3)
+    s = load_scenario(raw)
+    solver = solver_for(s)
+    evo = solver.run()
+    assert evo.norm is not None
+    clean = assemble(solver.name, s, evo)
+    assert not any(w.startswith("norm drift") for w in clean.warnings)
+    for factor, reported in ((10.0, True), (-10.0, True), (0.5, False)):
+        bumped = evo.norm.copy()
+        bumped[-1] += factor * NORM_TOLERANCE
+        drifted = assemble(solver.name, s, dataclasses.replace(evo, norm=bumped))
+        assert any(w.startswith("norm drift") for w in drifted.warnings) == reported, factor
 
 
 @pytest.mark.slow  # evolves random scenarios: minutes on 2 cores
@@ -171,23 +194,23 @@ def test_exact_probabilities_and_norm(raw):
 @settings(FAST, max_examples=5)
 @given(natural_scenario("markov", dims=1))
 def test_markov_probabilities_and_trace_1d(raw):
-    # the Lindblad generator is trace preserving; mesolve keeps the trace to its tolerance
-    assert check_probabilities(loaded(raw)) < 1e-5
+    # the Lindblad generator is trace preserving; mesolve keeps the trace within NORM_TOLERANCE
+    assert check_probabilities(loaded(raw)) <= NORM_TOLERANCE
 
 
 @pytest.mark.slow
 @settings(FAST, max_examples=5)
 @given(natural_scenario("markov", dims=3))
 def test_markov_probabilities_and_trace_3d(raw):
-    assert check_probabilities(loaded(raw)) < 1e-5
+    assert check_probabilities(loaded(raw)) <= NORM_TOLERANCE
 
 
 @pytest.mark.slow  # evolves random scenarios: minutes on 2 cores
 @settings(FAST, max_examples=6)
 @given(natural_scenario("fock"))
 def test_fock_probabilities_and_norm(raw):
-    # sesolve is not renormalised: its drift is bounded by the ODE tolerance, else reported
-    assert check_probabilities(loaded(raw)) < 1e-4
+    # sesolve is not renormalised: at its ODE tolerances the drift stays within NORM_TOLERANCE
+    assert check_probabilities(loaded(raw)) <= NORM_TOLERANCE
 
 
 # --- total momentum -----------------------------------------------------------------------------
@@ -350,7 +373,7 @@ def test_sector_survival_respects_the_mandelstam_tamm_bound(raw):
     s = loaded(raw)
     bath = bath_for(s, float(sample_times(s)[-1]))
     for sector in bath.sectors:
-        spread = math.sqrt(sector.coupling_sum)
+        spread = math.sqrt(float(np.sum(np.abs(sector.couplings) ** 2)))  # from the couplings
         t = np.linspace(0.0, 0.999 * math.pi / (2 * spread), 241)
         survival = np.abs(level_amplitude(sector.level_energy, sector.mode_energies,
                                           sector.couplings, t)) ** 2

@@ -8,7 +8,7 @@ import pytest
 
 from sim import load_scenario, run
 from sim.workflows.compare import COMPARED, compare_to_folder
-from sim.errors import OutputExists
+from sim.errors import OutputExists, ScenarioError
 
 #: the compared scenario as `make_scenario` keywords (invented numbers)
 COMPARE = dict(title=None, model="newton-wigner", ground_mass=1.0, gap=0.5, dims=1,
@@ -35,7 +35,9 @@ def test_compare_writes_one_column_per_method_run(folder):
     assert summary["simulated"] is True
     assert header == ["t", *summary["methods"]]
     assert set(summary["methods"]) | set(summary["skipped"]) == set(COMPARED)
-    assert {"perturbative", "markov"} <= set(summary["methods"])
+    # only fock may refuse a scenario; every other method must have run
+    assert set(summary["skipped"]) <= {"fock"}, summary["skipped"]
+    assert set(COMPARED) - {"fock"} <= set(summary["methods"])
     assert (folder / "compare.png").stat().st_size > 0
     assert values[0, 1:] == pytest.approx(1.0)  # every method starts excited
 
@@ -50,13 +52,51 @@ def test_compare_columns_are_the_methods_own_runs(folder, make_scenario):
 
 def test_compare_differences_are_taken_from_exact(folder):
     summary = json.loads((folder / "summary.json").read_text())
-    if "exact" not in summary["methods"]:
-        pytest.skip("exact solver not available")
+    assert "exact" in summary["methods"], summary["skipped"]  # exact never refuses this scenario
     header, values = read_csv(folder / "compare.csv")
     exact = values[:, header.index("exact")]
     for method, diff in summary["max_difference_from_exact"].items():
         assert diff == pytest.approx(np.max(np.abs(values[:, header.index(method)] - exact)),
                                      abs=1e-9)
+
+
+def test_no_method_is_skipped_on_a_scenario_every_method_takes(folder):
+    # a 1D vacuum scenario within fock's truncation limits: all four methods must run, so a
+    # refusal of any of them (fock included) fails here instead of being reported as skipped
+    summary = json.loads((folder / "summary.json").read_text())
+    assert summary["skipped"] == {}
+    assert summary["methods"] == list(COMPARED)
+
+
+@pytest.mark.parametrize("method", COMPARED)
+def test_only_a_fock_refusal_is_reported_as_skipped(make_scenario, tmp_path, monkeypatch,
+                                                   method):
+    # a refusal (ScenarioError) injected into one method's run: fock is then skipped with the
+    # refusal's own reason while every other method runs; a refusal by any other method must
+    # reach the caller, with no folder written.  (Every real fock refusal, a thermal field, is
+    # refused by exact too, and a rotating-wave scenario keeps fock's Fock space small, so the
+    # refusal is injected.)
+    import sim.workflows.compare as compare
+
+    real_run = compare.run
+
+    def refusing_run(scenario, method=None, **options):
+        if method == refused:
+            raise ScenarioError(f"{method} refuses this scenario (injected)")
+        return real_run(scenario, method=method, **options)
+
+    refused = method
+    monkeypatch.setattr(compare, "run", refusing_run)
+    s = load_scenario(make_scenario(COMPARE))
+    if method == "fock":
+        summary = json.loads((compare_to_folder(s, tmp_path / "out") / "summary.json").read_text())
+        assert summary["skipped"] == {"fock": "does not accept this scenario: fock refuses this "
+                                              "scenario (injected)"}
+        assert summary["methods"] == [m for m in COMPARED if m != "fock"]
+    else:
+        with pytest.raises(ScenarioError, match="injected"):
+            compare_to_folder(s, tmp_path / "out")
+        assert not (tmp_path / "out").exists()
 
 
 def test_compare_refuses_a_full_folder_without_force(folder, make_scenario):

@@ -28,8 +28,8 @@ from ...errors import ScenarioError
 from ...physics.checks import with_keys
 from ...physics.field import packet_for
 from ...physics.models import model_for
-from ..base import Estimate, Evolution, Solver
-from ..common import axis_grid, masked, sample_times, snapshot_indices
+from ..base import SAMPLE_BYTES, Estimate, Evolution, Solver, credit
+from ..common import axis_grid, last_sample_time, masked, snapshot_indices
 from .baths import Bath, bath_for, discreteness_correction, lamb_sector, refined_keys
 from .observables import STATE_ELEMENTS, ReducedState1D, axis_density, lattice_density
 from .star import sector_lamb_shift, star_spectrum
@@ -118,31 +118,41 @@ class ExactSolver(Solver):
             `bath_for(scenario, t_max)`.
         """
         if self._bath is None:
-            self._bath = bath_for(self.scenario, float(sample_times(self.scenario)[-1]))
+            self._bath = bath_for(self.scenario, last_sample_time(self.scenario))
         return self._bath
 
     def estimate(self) -> Estimate:
         """Size of the run from its bath.
 
         memory = 16 bytes x (min(sectors (modes + 1) samples, STATE_ELEMENTS) [1D only] +
-        4 modes samples) + 8 MiB of temporaries; work = 4 samples sum_sectors modes^2.
+        4 modes samples) + SAMPLE_BYTES samples + 8 MiB of temporaries;
+        work = 4 samples sum_sectors modes^2.  The bath is built for t_max alone
+        (`last_sample_time`): nothing here grows with run.samples but the arithmetic.
 
         Returns
         -------
         Estimate
             states = modes + 1 of the largest sector, memory (bytes), work (floating-point
             operations), keyed by bath.modes, bath.window, bath.box_length (1D) or bath.radial_nodes
-            (3D), bath.sectors.
+            (3D), bath.sectors and run.samples; the (modes x samples) terms are credited to the
+            larger of the two counts.
         """
         bath = self.bath()
         samples = self.scenario.run.samples
         modes = bath.mode_count
-        state = len(bath.sectors) * (modes + 1) * samples if bath.dimensions == 1 else 0
-        memory = 16.0 * (min(state, STATE_ELEMENTS) + 4 * modes * samples) + 8.0 * 2**18 * 4
+        sectors = len(bath.sectors)
+        state = sectors * (modes + 1) * samples if bath.dimensions == 1 else 0
+        breakdown: dict = {}
+        credit(breakdown, 16.0 * min(state, STATE_ELEMENTS) + 64.0 * modes * samples,
+               {"bath.modes": modes, "run.samples": samples})
+        credit(breakdown, SAMPLE_BYTES * samples, {"run.samples": samples})
+        memory = sum(breakdown.values()) + 8.0 * 2**18 * 4
         work = sum(s.mode_energies.size ** 2 for s in bath.sectors) * samples * 4.0
         keys = ("bath.modes", "bath.window", "bath.box_length" if bath.dimensions == 1
-                else "bath.radial_nodes", "bath.sectors")
-        return Estimate(states=modes + 1, memory_bytes=memory, work=work, keys=keys)
+                else "bath.radial_nodes", "bath.sectors", "run.samples")
+        values = {"bath.modes": modes, "bath.sectors": sectors, "run.samples": samples}
+        return Estimate(states=modes + 1, memory_bytes=memory, work=work, keys=keys,
+                        breakdown=breakdown, values=values)
 
     def refined(self) -> "ExactSolver":
         """The same solver with the bath refined x1.5 (`refined_keys`).

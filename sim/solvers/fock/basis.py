@@ -345,6 +345,41 @@ def state_count(plan: FockPlan) -> int:
                    if allowed_level(n, plan.start_level, plan.rotating_wave) is not None))
 
 
+def link_count(plan: FockPlan) -> int:
+    """Creation links n -> n + 1_j inside one sector's basis, without enumerating it.
+
+    A link starts at a state with N < max_quanta quanta and n_j < max_occupation and ends at
+    one with N + 1 quanta, both levels allowed (`allowed_level`).  By the symmetry of the
+    modes, links = M sum_a sum_N' c_(M-1)(N') over a = n_j < max_occupation and the other
+    modes' quanta N' with N = a + N' < max_quanta, c_(M-1) the `occupation_counts` of M - 1
+    modes.  The sector Hamiltonian (`sector_hamiltonian`) stores S + 2 links entries.
+
+    Parameters
+    ----------
+    plan : FockPlan
+
+    Returns
+    -------
+    int
+        The number of links (exact).
+    """
+    modes, top = plan.modes.count, plan.max_quanta
+    if modes == 0:
+        return 0
+    others = occupation_counts(modes - 1, plan.max_occupation, top)
+
+    def allowed(n):
+        return allowed_level(n, plan.start_level, plan.rotating_wave) is not None
+
+    total = 0
+    for a in range(min(plan.max_occupation, top)):
+        for rest, count in enumerate(others):
+            n = a + rest
+            if n < top and allowed(n) and allowed(n + 1):
+                total += int(count)
+    return modes * total
+
+
 @dataclass(frozen=True)
 class FockBasis:
     """Reachable states, with sorted keys for exact lookup.

@@ -60,14 +60,14 @@ from ...errors import ResourceError, ScenarioError
 from ...physics.checks import with_keys
 from ...physics.field import field_for, packet_for
 from ...physics.models import EXCITED, GROUND, level_of, model_for
-from ..base import Estimate, Evolution, Solver
+from ..base import SAMPLE_BYTES, Estimate, Evolution, Solver
 from ..common import (
     bin_index,
     box_return_time,
     emitted_speed,
+    last_sample_time,
     recurrence_warning,
     returning_box_length,
-    sample_times,
     snapshot_indices,
 )
 from .basis import (
@@ -279,13 +279,14 @@ class FockSolver(Solver):
         """States of one sector (exact count), memory of its Hamiltonian and ODE, rough flops.
 
         With S = `state_count(plan)` and M modes: entries = S (2 M + 1),
-        memory = entries BYTES_PER_ENTRY + S (BYTES_PER_STATE + M),
+        memory = entries BYTES_PER_ENTRY + S (BYTES_PER_STATE + M) + SAMPLE_BYTES samples,
         work = 8 x 20 entries x max(t_max max_quanta max_j w_j, 1) x sectors.
 
         Returns
         -------
         Estimate
-            Keyed by SIZE_KEYS.
+            Keyed by SIZE_KEYS and run.samples; the Fock space is credited to bath.max_quanta,
+            the series over the sample times to run.samples.
 
         Raises
         ------
@@ -295,11 +296,17 @@ class FockSolver(Solver):
         plan = self.plan
         states = state_count(plan)
         entries = states * (2 * plan.modes.count + 1)
-        memory = entries * BYTES_PER_ENTRY + states * (BYTES_PER_STATE + plan.modes.count)
-        span = float(sample_times(self.scenario)[-1]) * float(plan.max_quanta
-                                                              * plan.modes.frequencies.max())
+        samples = self.scenario.run.samples
+        space = float(entries * BYTES_PER_ENTRY + states * (BYTES_PER_STATE + plan.modes.count))
+        # the Fock space grows fastest with max_quanta (SIZE_KEYS[0]); the series with samples
+        breakdown = {SIZE_KEYS[0]: space, "run.samples": SAMPLE_BYTES * samples}
+        span = last_sample_time(self.scenario) * float(plan.max_quanta
+                                                       * plan.modes.frequencies.max())
         work = 8.0 * entries * 20 * max(span, 1.0) * len(plan.sector_weights)
-        return Estimate(states=states, memory_bytes=float(memory), work=work, keys=SIZE_KEYS)
+        values = {"bath.max_quanta": plan.max_quanta, "bath.fock_modes": plan.modes.count,
+                  "bath.max_occupation": plan.max_occupation, "run.samples": samples}
+        return Estimate(states=states, memory_bytes=space + SAMPLE_BYTES * samples, work=work,
+                        keys=(*SIZE_KEYS, "run.samples"), breakdown=breakdown, values=values)
 
     def refined(self) -> "FockSolver | None":
         """The same bath with max_quanta and max_occupation raised by one.
@@ -441,7 +448,7 @@ def fock_box_length(scenario, model) -> float:
     float
         L (length units).
     """
-    t_max = float(sample_times(scenario)[-1])
+    t_max = last_sample_time(scenario)
     return returning_box_length(t_max, emitted_speed(model, scenario), BOX_MARGIN)
 
 

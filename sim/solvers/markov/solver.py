@@ -66,8 +66,8 @@ import qutip
 
 from ...physics.field import field_for
 from ...physics.models import EXCITED, GROUND, level_of, model_for
-from ..base import Evolution, Solver
-from ..common import snapshot_indices
+from ..base import SAMPLE_BYTES, Estimate, Evolution, Solver, credit
+from ..common import last_sample_time, snapshot_indices
 from .lattice import (
     EDGE_TOLERANCE,
     MAX_STATES,
@@ -81,6 +81,17 @@ from .lattice import (
     window_size,
 )
 from .trajectories import unravel
+
+#: bytes per stored entry of the CSR Liouvillian (complex value + 64-bit column index)
+LIOUVILLIAN_ENTRY_BYTES = 24
+#: qutip.liouvillian sums Kronecker products: peak memory while building, in final sizes
+LIOUVILLIAN_BUILD_FACTOR = 3.0
+#: n^2-long complex vectors alive while mesolve runs: the ODE's work arrays, the state, the dense
+#: copy for the COM purity, the expectation values and qutip's copies of them; calibrated on a
+#: measured 1D vacuum run (876 states: about 1 kB per density-matrix element at the peak)
+ODE_VECTORS = 60
+#: ODE steps per unit of (largest decay rate x time), on top of one step per sample time
+STEPS_PER_DECAY = 20.0
 
 # ---------------------------------------------------------------------------------------------
 # The solver
@@ -253,6 +264,86 @@ class MarkovSolver(Solver):
         sectors = [build_sector(model, field, grid, rho, w, start) for rho, w in grid.transverse]
         return model, field, grid, sectors
 
+    def _sectors(self, t_max: float):
+        """`setup` for the sample times ending at t_max, built once and kept.
+
+        Parameters
+        ----------
+        t_max : float
+            The last sample time (time units); only it enters the lattice (`grid_for`).
+
+        Returns
+        -------
+        tuple
+            (model, field, grid, sectors) as `setup` returns them.
+        """
+        cached = getattr(self, "_setup_cache", None)
+        if cached is None or cached[0] != t_max:
+            cached = (t_max, self.setup(np.array([0.0, t_max])))
+            self._setup_cache = cached
+        return cached[1]
+
+    def estimate(self) -> Estimate:
+        """Size of the run: the sector states of the lattice closure and their Liouvillian.
+
+        For a sector of n states with jump operators of m_J entries, qutip.liouvillian stores
+        N = n^2 (the diagonal: H and the anticommutators) + sum_J m_J^2 (the L (x) L* products)
+        entries, so memory = max over sectors of LIOUVILLIAN_BUILD_FACTOR (LIOUVILLIAN_ENTRY_BYTES
+        N + 8 n^2) + 16 ODE_VECTORS n^2, plus SAMPLE_BYTES per sample time and sector; work =
+        8 N (samples + STEPS_PER_DECAY Gamma_max t_max) per sector.  The closure is built (as
+        the run builds it) in the vacuum when the packet window has at most MAX_STATES points;
+        otherwise it is bounded without building it: n = grid.points (1 + generations) states
+        (at least MAX_STATES, where the closure is cut, or 2 grid.points), and 2 x directions x
+        processes jump operators of n / 2 entries each.
+
+        Returns
+        -------
+        Estimate
+            states = the largest sector, keyed by grid.points, grid.span, grid.directions (3D)
+            and run.samples; the Liouvillian is credited to grid.points, the series over the
+            sample times to run.samples.
+
+        Raises
+        ------
+        ScenarioError
+            If grid.directions is given and is not 2 in 1D (`grid_for`).
+        """
+        s = self.scenario
+        t_max, samples = last_sample_time(s), s.run.samples
+        span, points = window_size(s.grid)
+        grid = grid_for(s, np.array([0.0, t_max]))
+        if points > MAX_STATES or grid.generations > 2:
+            # not built: a thermal closure costs about as much as the run's own setup
+            nodes = len(grid.transverse)
+            n = points * (1 + grid.generations)
+            n = n if n <= MAX_STATES else max(MAX_STATES, 2 * points)
+            families = 2 * (len(grid.directions) or 2) * (2 if grid.generations > 2 else 1)
+            sizes = [(n, [n // 2] * families, 0.0)] * nodes
+        else:
+            sizes = []
+            for sec in self._sectors(t_max)[3]:
+                out = np.zeros(sec.size)
+                for _, sources, amps in sec.families.values():
+                    np.add.at(out, np.asarray(sources, dtype=int), np.square(amps))
+                sizes.append((sec.size, [len(a) for _, _, a in sec.families.values()],
+                              float(out.max(initial=0.0))))
+        peak, work = 0.0, 0.0
+        for n, entries, top_rate in sizes:
+            stored = n * n + sum(m * m for m in entries)
+            peak = max(peak, LIOUVILLIAN_BUILD_FACTOR * (LIOUVILLIAN_ENTRY_BYTES * stored
+                                                         + 8.0 * n * n) + 16.0 * ODE_VECTORS * n * n)
+            work += 8.0 * stored * (samples + STEPS_PER_DECAY * top_rate * t_max)
+        breakdown: dict = {}
+        credit(breakdown, peak, {"grid.points": points})
+        credit(breakdown, SAMPLE_BYTES * samples * len(sizes), {"run.samples": samples})
+        keys = ("grid.points", "grid.span") + (("grid.directions",) if s.dimensions == 3 else ()) \
+            + ("run.samples",)
+        values = {"grid.points": points, "grid.span": span, "run.samples": samples}
+        if s.dimensions == 3:
+            values["grid.directions"] = s.grid.directions or POLAR_DIRECTIONS
+        return Estimate(states=max(n for n, _, _ in sizes), memory_bytes=sum(breakdown.values()),
+                        work=work, keys=keys, breakdown=breakdown, values=values)
+
     def evolve(self, times):
         """Solve the Lindblad master equation of every sector and combine them.
 
@@ -286,7 +377,7 @@ class MarkovSolver(Solver):
         The QuTiP 5 documentation: mesolve, mcsolve.
         """
         s = self.scenario
-        model, field, grid, sectors = self.setup(times)
+        model, field, grid, sectors = self._sectors(float(times[-1]))
         start = level_of(s.packet.internal)
         amplitudes = packet_amplitudes(s, grid, start)
         snaps = snapshot_indices(len(times))

@@ -24,12 +24,15 @@ from ...physics.field import field_for, packet_for
 from ...physics.golden_rule import ABSORPTION, EMISSION, channels_1d, kick_moments
 from ...physics.models import EXCITED, level_of, model_for
 from ...physics.packet import gaussian_density
-from ..base import Evolution, Solver
+from ..base import SAMPLE_BYTES, Estimate, Evolution, Solver
 from ..common import axis_grid, snapshot_indices
 
 #: packet quadrature nodes (1D: signed momenta; 3D: |P|)
 PACKET_NODES_1D = 401
 PACKET_NODES_3D = 64
+#: (packet nodes x sample times) float arrays alive at once in `evolve` (populations, their
+#: integrals, transition numbers and the temporaries between them)
+NODE_TIME_ARRAYS = 10
 
 
 def two_level_populations(up, down, excited_start: bool, t):
@@ -98,6 +101,24 @@ class PerturbativeSolver(Solver):
     """
 
     name = "perturbative"
+
+    def estimate(self) -> Estimate:
+        """Size of the run: (packet nodes x sample times) arrays dominate.
+
+        memory = samples (SAMPLE_BYTES + 8 NODE_TIME_ARRAYS N) bytes with N the packet nodes
+        (PACKET_NODES_1D or PACKET_NODES_3D); work = 40 N samples floating-point operations.
+
+        Returns
+        -------
+        Estimate
+            states = N, keyed by run.samples (the only size a scenario sets here).
+        """
+        samples = self.scenario.run.samples
+        nodes = PACKET_NODES_1D if self.scenario.dimensions == 1 else PACKET_NODES_3D
+        memory = samples * (SAMPLE_BYTES + 8.0 * NODE_TIME_ARRAYS * nodes)
+        return Estimate(states=nodes, memory_bytes=memory, work=40.0 * nodes * samples,
+                        keys=("run.samples",), breakdown={"run.samples": memory},
+                        values={"run.samples": samples})
 
     def evolve(self, times):
         """Golden-rule rate equations per packet momentum, with their recoil moments.
@@ -212,7 +233,9 @@ def _snapshots_1d(model, field, packet, P, excited_P, excited_start, grid, snaps
     channels = [channels_1d(model, field, EMISSION, p) for p in P]
     for branch in range(max(len(c) for c in channels)):
         kick = np.array([c[branch].kick if branch < len(c) else np.nan for c in channels])
-        share = np.array([c[branch].rate / sum(x.rate for x in c) if branch < len(c) else 0.0
+        # a channel's share of the emissions; none at all without coupling (all rates zero)
+        share = np.array([c[branch].rate / total
+                          if branch < len(c) and (total := sum(x.rate for x in c)) > 0 else 0.0
                           for c in channels])
         target = P + kick
         ok = np.isfinite(target)

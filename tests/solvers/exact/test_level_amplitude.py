@@ -117,7 +117,8 @@ def test_norm_is_conserved():
 
 
 def test_short_time_expansion():
-    # Taylor expansion of <e|exp(-iHt)|e> (standard; with h = H - E0, m_n = <e|h^n|e>, m_2 = B):
+    # Taylor expansion of <e|exp(-iHt)|e>, derived here by expanding exp(-iht) to fourth order
+    # (m_1 = 0; with h = H - E0, m_n = <e|h^n|e>, m_2 = B):
     # |c(t)|^2 = 1 - B t^2 + (B^2/4 + m_4/12) t^4 + O(t^6), B = sum |g_k|^2, m_4 = B^2 + sum |g_k|^2 (eps_k - E0)^2.
     # The t^2 term is the exact Zeno-region law (common practice; Misra & Sudarshan, J. Math.
     # Phys. 18, 756 (1977), from memory); the t^4 term pins its error.
@@ -133,8 +134,9 @@ def test_short_time_expansion():
 
 
 def test_lamb_shift_is_second_order_energy_shift():
-    # Rayleigh-Schroedinger perturbation theory (standard textbook): for a level below the band the
-    # dressed level is z = E0 + sum_k |g_k|^2/(E0 - eps_k) + O(g^4).
+    # Rayleigh-Schroedinger perturbation theory, second-order energy shift (Sakurai, Modern
+    # Quantum Mechanics, sec. 5.1, nondegenerate case, from memory): for a level below the band
+    # the dressed level is z = E0 + sum_k |g_k|^2/(E0 - eps_k) + O(g^4).
     rng = np.random.default_rng(8)
     energies = rng.uniform(1.0, 2.0, 40)
     couplings = rng.standard_normal(40) + 1j * rng.standard_normal(40)
