@@ -144,17 +144,7 @@ def atomic_write_text(path: str | Path, text: str) -> None:
     """
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
-    try:
-        os.fchmod(fd, file_mode())
-        with os.fdopen(fd, "w", newline="") as handle:
-            handle.write(text)
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        Path(tmp).unlink(missing_ok=True)
-        raise
+    _write_through_temporary(path, lambda handle: handle.write(text.encode()))
 
 
 def atomic_copy(source: str | Path, path: str | Path) -> None:
@@ -166,12 +156,21 @@ def atomic_copy(source: str | Path, path: str | Path) -> None:
     path : str or Path
         The copy; it gets the umask's mode.
     """
-    path = Path(path)
+    def copy(handle) -> None:
+        with open(source, "rb") as original:
+            shutil.copyfileobj(original, handle)
+
+    _write_through_temporary(Path(path), copy)
+
+
+def _write_through_temporary(path: Path, write) -> None:
+    """Call write(binary handle) on a temporary file beside `path` (mode from the umask), sync
+    it and rename it to `path`; the temporary file is removed on any error."""
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     try:
         os.fchmod(fd, file_mode())
-        with os.fdopen(fd, "wb") as handle, open(source, "rb") as original:
-            shutil.copyfileobj(original, handle)
+        with os.fdopen(fd, "wb") as handle:
+            write(handle)
             handle.flush()
             os.fsync(handle.fileno())
         os.replace(tmp, path)
