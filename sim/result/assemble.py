@@ -84,7 +84,7 @@ def assemble(method: str, scenario: Scenario, evo: Evolution) -> Result:
               else fitted_excitation_rate(times, evo.excited))
     warnings = (list(getattr(scenario, "notes", ())) + list(evo.warnings)
                 + physics_warnings(scenario, golden)
-                + norm_warning(evo.norm, NORM_KEYS.get(method, "")))
+                + norm_warning(evo.norm, NORM_ADVICE.get(method, "")))
     if excited_start and not np.isfinite(fitted):
         warnings.append(fit_warning(scenario, golden, evo.excited))
     summary = {
@@ -113,10 +113,20 @@ def assemble(method: str, scenario: Scenario, evo: Evolution) -> Result:
                   summary=summary, tables=evo.tables, final_state=evo.final_state)
 
 
-#: the keys that refine each method's discretisation, for the norm-drift warning
-NORM_KEYS = {"exact": "bath.modes or bath.window",
-             "fock": "bath.max_quanta or bath.max_occupation",
-             "markov": "grid.points"}
+#: where each method's norm drift comes from and the key that reduces it (`norm_warning`): the
+#: evolution conserves probability, so a larger bath or grid does not help (measured for fock:
+#: the drift halves with run.t_max and does not move with bath.max_quanta)
+NORM_ADVICE = {
+    "fock": "the truncated evolution conserves probability, so this is the ODE integrator's "
+            "error, which grows with the length of the run: lower run.t_max (raising "
+            "bath.max_quanta or bath.fock_modes does not remove it)",
+    "markov": "the master equation conserves probability, so this is the ODE integrator's "
+              "error, which grows with the length of the run: lower run.t_max (a finer "
+              "grid.points does not remove it)",
+    "exact": "the evolution of each sector is unitary, so this is rounding in the sector "
+             "spectra (stats.residue_sum_error shows the worst residue sum), not a bath too "
+             "small: changing the bath keys is not the remedy",
+}
 
 
 def fit_warning(scenario: Scenario, golden: float, excited: np.ndarray) -> str:

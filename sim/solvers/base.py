@@ -48,6 +48,15 @@ class Estimate:
     values : dict, optional
         Scenario key -> the value the run uses for it (the resolved value where the key was
         left to an automatic choice), for messages.
+    scaling : dict, optional
+        Scenario key -> the power q with which its `breakdown` part grows with its value
+        (part ~ value^q, dimensionless); a key without one (its part grows faster than any
+        power, or not at all in its value) gets no suggested value.  Used to say what to lower
+        a key to (`lowered`).
+    resize : callable, optional
+        ``resize(samples) -> memory_bytes``: the same estimate for another run.samples, cheap
+        and allocation-free; `lowered` bisects on it for run.samples (exact where the memory is
+        not proportional to the samples).
     """
 
     states: int
@@ -56,6 +65,8 @@ class Estimate:
     keys: tuple[str, ...] = ()
     breakdown: dict = field(default_factory=dict, hash=False, compare=False)
     values: dict = field(default_factory=dict, hash=False, compare=False)
+    scaling: dict = field(default_factory=dict, hash=False, compare=False)
+    resize: object = field(default=None, hash=False, compare=False, repr=False)
 
     @property
     def dominant_key(self) -> str:
@@ -100,6 +111,50 @@ class Estimate:
         value = self.values[key]
         text = f"{value:.4g}" if isinstance(value, float) else f"{value!r}"
         return f"{key} = {text}"
+
+    def lowered(self, key: str, limit: float) -> float | int | None:
+        """The largest value of `key` with which the estimate fits under `limit`.
+
+        For run.samples with `resize`: the largest count n >= 2 with resize(n) <= limit
+        (bisection).  Otherwise, with b the key's `breakdown` part, r = memory_bytes - b the rest
+        and q its `scaling`, the run fits when b (v' / v)^q <= limit - r, so
+        v' = v ((limit - r) / b)^(1/q), rounded down for an integer key.
+
+        Parameters
+        ----------
+        key : str
+            A key of `breakdown` with a numeric entry in `values`.
+        limit : float
+            The memory the run may use (bytes).
+
+        Returns
+        -------
+        float, int or None
+            v' (the key's units; an int for an integer key), or None when lowering the key
+            alone cannot fit the run (the rest exceeds `limit`, or v' would round to 0), or when
+            the part, the value or the scaling (`scaling`) is unknown.
+        """
+        part, value = self.breakdown.get(key, 0.0), self.values.get(key)
+        if key == "run.samples" and self.resize is not None and isinstance(value, int):
+            low, high = 2, value
+            if self.resize(low) > limit:
+                return None
+            while high - low > 1:  # resize(low) fits, resize(high) does not
+                middle = (low + high) // 2
+                low, high = (middle, high) if self.resize(middle) <= limit else (low, middle)
+            return low
+        power = self.scaling.get(key)
+        if not part > 0 or isinstance(value, bool) or not isinstance(value, (int, float)) \
+                or power is None or not power > 0:
+            return None
+        room = limit - (self.memory_bytes - part)
+        if not room > 0:
+            return None
+        target = value * (room / part) ** (1.0 / power)
+        if isinstance(value, int):
+            target = int(target)
+            return target if target >= 1 else None
+        return float(target)
 
     def describe(self) -> str:
         """The estimate in words, for messages and ``--dry-run``.
@@ -171,15 +226,35 @@ def refusal(estimate: Estimate, method: str, available: float | None = None) -> 
     -------
     str or None
         None when ``estimate.memory_bytes <= MEMORY_SHARE * available``; else one line that
-        starts with the dominant key and its value (`Estimate.dominant_key`), gives the estimate
-        and the limit, and lists the keys to lower, the dominant one first.
+        starts with the dominant key and its value (`Estimate.dominant_key`), gives the estimate,
+        the dominant key's share and the limit, says what to lower that key to
+        (`Estimate.lowered`) or that lowering it alone is not enough, and lists the other keys.
     """
-    limit = MEMORY_SHARE * (available_memory() if available is None else available)
+    available = available_memory() if available is None else available
+    limit = MEMORY_SHARE * available
     if estimate.memory_bytes <= limit:
         return None
-    keys = estimate.ordered_keys()
-    return (f"{estimate.named(keys[0])}: method {method!r} would need {estimate.describe()}, "
-            f"more than the {limit / 2**30:.3g} GiB available; lower {', '.join(keys)}")
+    first, *others = estimate.ordered_keys()
+    share = estimate.breakdown.get(first)
+    head = (f"{estimate.named(first)}: method {method!r} would need {estimate.describe()}"
+            + (f" ({first} accounts for {share / 2**30:.3g} GiB)" if share else "")
+            + f", more than the {limit / 2**30:.3g} GiB it may use ({MEMORY_SHARE:.0%} of the "
+            f"{available / 2**30:.3g} GiB available)")
+    target = estimate.lowered(first, limit)
+    if target is not None:
+        text = f"{target:,}" if isinstance(target, int) else f"{target:.3g}"
+        advice = f"lower {first} to at most {text}"
+        if others:
+            advice += f" (or lower {', '.join(others)})"
+    elif share and others and (first in estimate.scaling or (first == "run.samples"
+                                                            and estimate.resize is not None)):
+        rest = estimate.memory_bytes - share
+        advice = (f"lowering {first} alone is not enough"
+                  + (f" (the rest needs {rest / 2**30:.3g} GiB)" if rest >= limit else "")
+                  + f"; lower {first} and {', '.join(others)}")
+    else:
+        advice = f"lower {', '.join((first, *others))}"
+    return f"{head}; {advice}"
 
 
 def check_resources(estimate: Estimate, method: str) -> None:
@@ -342,7 +417,7 @@ class Solver:
         samples = self.scenario.run.samples
         return Estimate(states=samples, memory_bytes=SAMPLE_BYTES * samples, work=1e3 * samples,
                         keys=("run.samples",), breakdown={"run.samples": SAMPLE_BYTES * samples},
-                        values={"run.samples": samples})
+                        values={"run.samples": samples}, scaling={"run.samples": 1.0})
 
     def run(self) -> Evolution:
         """Check the memory estimate, evolve over the scenario's sample times, time it.

@@ -322,16 +322,20 @@ def recurrence_warning(t_max: float, recurrence: float, what: str, key: str) -> 
 # --- warnings every method shares ---------------------------------------------------------------
 
 
-def norm_warning(norm: np.ndarray | None, keys: str = "") -> list[str]:
+def norm_warning(norm: np.ndarray | None, advice: str = "") -> list[str]:
     """A warning when the total probability departs from 1 by more than NORM_TOLERANCE.
+
+    Every method's evolution conserves probability (a truncated Hamiltonian, a Lindblad
+    generator, an exact spectrum), so a drift is numerical error, not a discretisation that a
+    larger bath or grid would cure; `advice` says what does reduce it for the method.
 
     Parameters
     ----------
     norm : ndarray or None
         Total probability over time (dimensionless), or None when not checked.
-    keys : str, optional
-        The scenario keys that refine the method's discretisation, for the message (e.g.
-        "bath.modes or bath.window"); the message names no key when empty.
+    advice : str, optional
+        Where the error comes from and the key that reduces it, for the message; a generic
+        sentence naming no key when empty.
 
     Returns
     -------
@@ -344,8 +348,8 @@ def norm_warning(norm: np.ndarray | None, keys: str = "") -> list[str]:
     if drift <= NORM_TOLERANCE:
         return []
     return [f"norm drift: total probability departs from 1 by {drift:.2e} "
-            f"(tolerance {NORM_TOLERANCE:g}); refine the discretisation"
-            + (f" (raise {keys})" if keys else "")]
+            f"(tolerance {NORM_TOLERANCE:g}); "
+            + (advice or "the evolution conserves probability, so this is numerical error")]
 
 
 def galilean_reach_speed(scenario: Scenario, packet: Packet) -> float:

@@ -38,10 +38,12 @@ def test_dry_run_says_it_would_run_and_exits_0(make_scenario, write_scenario, ca
 
 
 def tiny_memory(monkeypatch, nbytes: float = 50e6) -> None:
-    """Pretend only `nbytes` of memory are available (the guard's view)."""
+    """Pretend only `nbytes` of memory are available: to the guard and to the dry run."""
     import sim.solvers.base
+    import sim.workflows.run
 
-    monkeypatch.setattr(sim.solvers.base, "available_memory", lambda: nbytes)
+    for module in (sim.solvers.base, sim.workflows.run):
+        monkeypatch.setattr(module, "available_memory", lambda: nbytes)
 
 
 def test_dry_run_of_too_many_samples_says_refused_naming_run_samples(make_scenario,
@@ -62,8 +64,25 @@ def test_memory_refusal_names_run_samples_first_with_its_value(make_scenario, wr
     assert main(["run", str(path), "--out", str(tmp_path / "out")]) == 2
     line = one_line(capsys.readouterr().err)
     assert line.startswith("recoilsim: run.samples = 1000000: method 'exact'"), line
-    assert re.search(r"lower run\.samples, bath\.", line), line
+    # what to lower it to, then the other keys
+    target = re.search(r"lower run\.samples to at most ([\d,]+) \(or lower bath\.", line)
+    assert target, line
+    assert 2 <= int(target.group(1).replace(",", "")) < 1_000_000, line
     assert not (tmp_path / "out").exists()
+
+
+def test_the_suggested_sample_count_is_accepted(make_scenario, write_scenario, tmp_path, capsys,
+                                                 monkeypatch):
+    # the value the refusal suggests passes the same guard (a dry run says "would run")
+    tiny_memory(monkeypatch)
+    raw = make_scenario(SMALL, samples=1_000_000, **method_keys("exact"))
+    assert main(["run", str(write_scenario(raw)), "--dry-run"]) == 2
+    line = one_line(capsys.readouterr().out)
+    suggested = int(re.search(r"lower run\.samples to at most ([\d,]+)", line).group(1)
+                    .replace(",", ""))
+    raw["run"]["samples"] = suggested
+    assert main(["run", str(write_scenario(raw, "t.toml")), "--dry-run"]) == 0
+    assert "would run" in one_line(capsys.readouterr().out)
 
 
 @pytest.mark.parametrize("method", METHODS)
@@ -115,16 +134,24 @@ def test_every_estimate_names_keys_of_the_schema(make_scenario, write_scenario, 
         assert name in SCHEMA.get(table, {}), (key, line)
 
 
-def test_markov_dry_run_grows_with_its_lattice(make_scenario, write_scenario, capsys):
+def test_markov_dry_run_grows_with_its_lattice(make_scenario, write_scenario, capsys,
+                                              monkeypatch):
+    tiny_memory(monkeypatch, 4 * 2**30)
     path = write_scenario(make_scenario(SMALL, method="markov", grid__points=20001))
-    main(["run", str(path), "--dry-run"])
+    assert main(["run", str(path), "--dry-run"]) == 2
     line = one_line(capsys.readouterr().out)
     assert "size set mostly by grid.points = 20001" in line, line
+    # the Liouvillian grows as points^2: the suggestion is about sqrt(limit / estimate) x 20001
+    target = re.search(r"lower grid\.points to at most ([\d,]+)", line)
+    assert target and 100 < int(target.group(1).replace(",", "")) < 20001, line
 
 
+@pytest.mark.parametrize("method", ["perturbative", "exact", "markov"])
 def test_zero_coupling_warning_points_to_coupling_strength(make_scenario, write_scenario,
-                                                          tmp_path, capsys):
-    path = write_scenario(make_scenario(SMALL, method="perturbative", strength=0.0))
+                                                          tmp_path, capsys, method):
+    # (the perturbative method also divided by the zero total rate here)
+    path = write_scenario(make_scenario(SMALL, method=method, strength=0.0,
+                                        **method_keys(method)))
     assert main(["run", str(path), "--out", str(tmp_path / "out")]) == 0
     warnings = [w for w in capsys.readouterr().out.splitlines() if "rate_fitted" in w]
     assert warnings, "no rate_fitted warning"
@@ -151,3 +178,20 @@ def test_scenario_notes_open_the_warnings(make_scenario):
     else:  # the config layer has not grown the field yet
         object.__setattr__(scenario, "notes", notes)
     assert run(scenario).summary["warnings"][:1] == list(notes)
+
+
+#: a zero-coupling 1D fock run whose ODE drifts past the norm tolerance (measured: 1.7e-6 at
+#: t_max = 450, halving with t_max; raising bath.max_quanta leaves it unchanged)
+DRIFTING_FOCK = dict(title="drift test", model="newton-wigner", ground_mass=1.0, gap=0.5, dims=1,
+                     strength=0.0, width=20.0, momentum=0.3, internal="excited", method="fock",
+                     t_max=450.0, samples=101, field__mass=0.02)
+
+
+def test_norm_drift_warning_points_to_the_key_that_reduces_it(make_scenario, write_scenario,
+                                                               tmp_path, capsys):
+    path = write_scenario(make_scenario(DRIFTING_FOCK))
+    assert main(["run", str(path), "--out", str(tmp_path / "out")]) == 0
+    drift = [w for w in capsys.readouterr().out.splitlines() if "norm drift" in w]
+    assert drift, "no norm-drift warning"
+    assert "lower run.t_max" in drift[0], drift
+    assert "raise bath.max_quanta" not in drift[0] and "refine the discretisation" not in drift[0]

@@ -29,7 +29,7 @@ from ...physics.checks import with_keys
 from ...physics.field import packet_for
 from ...physics.models import model_for
 from ..base import SAMPLE_BYTES, Estimate, Evolution, Solver, credit
-from ..common import axis_grid, last_sample_time, masked, snapshot_indices
+from ..common import SNAPSHOTS, axis_grid, last_sample_time, masked, snapshot_indices
 from .baths import Bath, bath_for, discreteness_correction, lamb_sector, refined_keys
 from .observables import STATE_ELEMENTS, ReducedState1D, axis_density, lattice_density
 from .star import sector_lamb_shift, star_spectrum
@@ -38,6 +38,20 @@ from .star import sector_lamb_shift, star_spectrum
 RECOIL_WORK = 4e10
 #: 3D axis density: Gaussian smoothing of the sampled histogram, in grid cells
 DENSITY_SMOOTHING = 1.5
+
+# Memory of a run (`ExactSolver.estimate`), measured as the peak resident memory of the bundled
+# scenarios (default.toml, recoil_3d.toml) at several sample counts:
+#: bytes per (recoil time x mode): the amplitudes, their squares and the kernel's block products
+MODE_BYTES = 80.0
+#: bytes per amplitude of the 1D reduced state (the array, and the conjugate copy of `purity`)
+STATE_BYTES = 32.0
+#: bytes per bath mode (the sector's arrays and its star spectrum)
+BATH_BYTES = 128.0
+#: bytes per element of the kernels' temporary blocks, and the most elements they hold
+KERNEL_BYTES = 6.0
+KERNEL_ELEMENTS = 2 ** 22
+#: temporaries of any run (level-amplitude blocks, snapshot densities)
+FIXED_BYTES = 8.0 * 2 ** 20
 
 
 def unsupported(scenario) -> list[str]:
@@ -122,37 +136,63 @@ class ExactSolver(Solver):
         return self._bath
 
     def estimate(self) -> Estimate:
-        """Size of the run from its bath.
+        """Size of the run from its bath, without building anything in proportion to run.samples.
 
-        memory = 16 bytes x (min(sectors (modes + 1) samples, STATE_ELEMENTS) [1D only] +
-        4 modes samples) + SAMPLE_BYTES samples + 8 MiB of temporaries;
-        work = 4 samples sum_sectors modes^2.  The bath is built for t_max alone
-        (`last_sample_time`): nothing here grows with run.samples but the arithmetic.
+        With T = run.samples, R the recoil times (`recoil_count`), N_s the modes and B_s the
+        bright modes of sector s (the largest: N, B), and in 1D the reduced state's
+        E = rows x sectors x lattice width amplitudes (`reduced_state_elements`):
+
+            memory = MODE_BYTES R (N in 1D, B in 3D) + STATE_BYTES E + BATH_BYTES sum_s N_s
+                     + SAMPLE_BYTES T + KERNEL_BYTES min(KERNEL_ELEMENTS, R (N + 1)) + FIXED_BYTES,
+            work   = sum_s 8 (N_s + 1) (T + R B_s)      (level amplitudes, then recoil amplitudes).
+
+        The constants are measured (peak resident memory of bundled scenarios).  The bath is
+        built for t_max alone (`last_sample_time`).
 
         Returns
         -------
         Estimate
             states = modes + 1 of the largest sector, memory (bytes), work (floating-point
             operations), keyed by bath.modes, bath.window, bath.box_length (1D) or bath.radial_nodes
-            (3D), bath.sectors and run.samples; the (modes x samples) terms are credited to the
-            larger of the two counts.
+            (3D), bath.sectors and run.samples; the (modes x recoil times) term is credited to the
+            larger count, the reduced state and the bath to bath.modes, the series over the
+            sample times to run.samples.
         """
         bath = self.bath()
         samples = self.scenario.run.samples
         modes = bath.mode_count
         sectors = len(bath.sectors)
-        state = sectors * (modes + 1) * samples if bath.dimensions == 1 else 0
-        breakdown: dict = {}
-        credit(breakdown, 16.0 * min(state, STATE_ELEMENTS) + 64.0 * modes * samples,
-               {"bath.modes": modes, "run.samples": samples})
-        credit(breakdown, SAMPLE_BYTES * samples, {"run.samples": samples})
-        memory = sum(breakdown.values()) + 8.0 * 2**18 * 4
-        work = sum(s.mode_energies.size ** 2 for s in bath.sectors) * samples * 4.0
+        bright = [np.unique(sec.mode_energies).size for sec in bath.sectors]
+        across = modes if bath.dimensions == 1 else max(bright, default=0)
+        bath_bytes = BATH_BYTES * sum(sec.mode_energies.size for sec in bath.sectors)
+        width = ReducedState1D.lattice_range(bath)[1] if bath.dimensions == 1 else 0
+
+        def memory(count: int) -> tuple[dict, float]:
+            recoil = recoil_count(count, bright)
+            breakdown: dict = {}
+            credit(breakdown, MODE_BYTES * recoil * across,
+                   {"bath.modes": across, "run.samples": recoil})
+            elements = reduced_state_elements(bath, recoil, width)
+            # rows x sectors x width, capped at STATE_ELEMENTS: the larger factor drives it
+            credit(breakdown, STATE_BYTES * elements,
+                   {"bath.modes": width, "run.samples": elements // max(sectors * width, 1)})
+            credit(breakdown, bath_bytes, {"bath.modes": modes})
+            credit(breakdown, SAMPLE_BYTES * count, {"run.samples": count})
+            total = (sum(breakdown.values()) + FIXED_BYTES
+                     + KERNEL_BYTES * min(KERNEL_ELEMENTS, recoil * (modes + 1)))
+            return breakdown, total
+
+        breakdown, total = memory(samples)
+        recoil = recoil_count(samples, bright)
+        work = sum(8.0 * (sec.mode_energies.size + 1) * (samples + recoil * b)
+                   for sec, b in zip(bath.sectors, bright))
         keys = ("bath.modes", "bath.window", "bath.box_length" if bath.dimensions == 1
                 else "bath.radial_nodes", "bath.sectors", "run.samples")
         values = {"bath.modes": modes, "bath.sectors": sectors, "run.samples": samples}
-        return Estimate(states=modes + 1, memory_bytes=memory, work=work, keys=keys,
-                        breakdown=breakdown, values=values)
+        # the parts credited to bath.modes grow about linearly with it; run.samples is resized
+        return Estimate(states=modes + 1, memory_bytes=total, work=work, keys=keys,
+                        breakdown=breakdown, values=values, scaling={"bath.modes": 1.0},
+                        resize=lambda count: memory(count)[1])
 
     def refined(self) -> "ExactSolver":
         """The same solver with the bath refined x1.5 (`refined_keys`).
@@ -284,6 +324,60 @@ def recoil_indices(samples: int, snaps: np.ndarray, bright_counts) -> np.ndarray
     work = sum(n * n for n in bright_counts) * samples
     stride = max(1, math.ceil(work / RECOIL_WORK))
     return np.union1d(np.union1d(np.arange(0, samples, stride), snaps), [samples - 1])
+
+
+def recoil_count(samples: int, bright_counts) -> int:
+    """How many recoil times `recoil_indices` keeps, without building them.
+
+    With the stride m = ceil(samples sum n^2 / RECOIL_WORK): ceil(samples / m) times on the
+    stride, plus at most the snapshots and the last time off it.
+
+    Parameters
+    ----------
+    samples : int
+        Number of sample times.
+    bright_counts : iterable of int
+        Number of bright modes of each sector.
+
+    Returns
+    -------
+    int
+        An upper bound (exact to SNAPSHOTS + 1) on the length of `recoil_indices`, at most
+        `samples`.
+    """
+    work = sum(n * n for n in bright_counts) * samples
+    stride = max(1, math.ceil(work / RECOIL_WORK))
+    return int(min(samples, -(-samples // stride) + SNAPSHOTS + 1))
+
+
+def reduced_state_elements(bath: Bath, recoil: int, width: int | None = None) -> int:
+    """Amplitudes the 1D reduced state holds (`ReducedState1D`), without building it.
+
+    Parameters
+    ----------
+    bath : Bath
+    recoil : int
+        Number of recoil times (`recoil_count`).
+    width : int, optional
+        The bath's lattice width (`ReducedState1D.lattice_range`), when already known.
+
+    Returns
+    -------
+    int
+        rows x sectors x width, with the rows thinned as `ReducedState1D` thins them; 0 in 3D or
+        when the state does not fit (`ReducedState1D.fits`: sectors on every lattice point and
+        2 sectors width <= STATE_ELEMENTS).
+    """
+    if bath.dimensions != 1:
+        return 0
+    if width is None:
+        width = ReducedState1D.lattice_range(bath)[1]
+    sectors = len(bath.sectors)
+    if bath.stride != 1 or 2 * sectors * width > STATE_ELEMENTS:
+        return 0
+    stride = max(1, math.ceil(sectors * width * recoil / STATE_ELEMENTS))
+    rows = min(recoil, -(-recoil // stride) + 1)
+    return int(rows * sectors * width)
 
 
 def lamb_shift(scenario, bath: Bath) -> tuple[float, float]:

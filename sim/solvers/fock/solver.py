@@ -74,9 +74,11 @@ from .basis import (
     DIRECTIONS_3D,
     FockBasis,
     FockPlan,
+    allowed_level,
     com_momenta,
     fock_basis,
     lattice_modes,
+    link_count,
     octahedral_modes,
     sector_grid_1d,
     sector_grid_3d,
@@ -104,10 +106,13 @@ MAX_SECTOR_STATES = 400_000
 MOMENTUM_BINS_3D = 121
 #: ODE settings of qutip.sesolve: tight tolerances, no renormalisation (the norm is checked)
 ODE_OPTIONS = {"atol": 1e-12, "rtol": 1e-10, "nsteps": 10**7, "normalize_output": False}
-#: bytes per stored Hamiltonian entry (complex value + index in CSR, plus COO build temporaries)
-BYTES_PER_ENTRY = 64
-#: bytes per basis state besides the Hamiltonian (ODE work vectors, observables, lookup keys)
-BYTES_PER_STATE = 512
+# Memory of a run (`FockSolver.estimate`), measured as the peak resident memory of
+# vacuum_excitation.toml with 20, 30 and 40 box modes (10,626 to 82,251 states):
+#: bytes per Hamiltonian entry: the COO build (88 at its peak), and the previous sector's
+#: operator copies still held while the next one is built
+BYTES_PER_ENTRY = 150
+#: bytes per basis state: occupations, lookup keys, diagonal observables, ODE work vectors
+BYTES_PER_STATE = 200
 #: size keys named in a refusal, the most effective first
 SIZE_KEYS = ("bath.max_quanta", "bath.fock_modes", "bath.max_occupation")
 
@@ -278,15 +283,21 @@ class FockSolver(Solver):
     def estimate(self) -> Estimate:
         """States of one sector (exact count), memory of its Hamiltonian and ODE, rough flops.
 
-        With S = `state_count(plan)` and M modes: entries = S (2 M + 1),
-        memory = entries BYTES_PER_ENTRY + S (BYTES_PER_STATE + M) + SAMPLE_BYTES samples,
-        work = 8 x 20 entries x max(t_max max_quanta max_j w_j, 1) x sectors.
+        With S = `state_count(plan)`, entries = S + 2 `link_count(plan)` (exact: the stored
+        Hamiltonian), G the axis-momentum bins (`grid_points`), T = run.samples and the sectors:
+
+            memory = BYTES_PER_ENTRY entries + BYTES_PER_STATE S
+                     + T (8 sectors (6 + G) + SAMPLE_BYTES),
+            work   = 8 x 20 entries x max(t_max max_quanta max_j w_j, 1) x sectors.
+
+        Nothing is enumerated (the counts are polynomial arithmetic, `occupation_counts`).
 
         Returns
         -------
         Estimate
-            Keyed by SIZE_KEYS and run.samples; the Fock space is credited to bath.max_quanta,
-            the series over the sample times to run.samples.
+            Keyed by SIZE_KEYS and run.samples; the Fock space is credited to bath.max_quanta
+            (no suggested value: it grows combinatorially), the series over the sample times to
+            run.samples (linear).
 
         Raises
         ------
@@ -295,18 +306,21 @@ class FockSolver(Solver):
         """
         plan = self.plan
         states = state_count(plan)
-        entries = states * (2 * plan.modes.count + 1)
+        entries = states + 2 * link_count(plan)
         samples = self.scenario.run.samples
-        space = float(entries * BYTES_PER_ENTRY + states * (BYTES_PER_STATE + plan.modes.count))
+        sectors = len(plan.sector_weights)
+        space = float(entries * BYTES_PER_ENTRY + states * BYTES_PER_STATE)
+        series = samples * (8.0 * sectors * (6 + grid_points(plan)) + SAMPLE_BYTES)
         # the Fock space grows fastest with max_quanta (SIZE_KEYS[0]); the series with samples
-        breakdown = {SIZE_KEYS[0]: space, "run.samples": SAMPLE_BYTES * samples}
+        breakdown = {SIZE_KEYS[0]: space, "run.samples": series}
         span = last_sample_time(self.scenario) * float(plan.max_quanta
-                                                       * plan.modes.frequencies.max())
-        work = 8.0 * entries * 20 * max(span, 1.0) * len(plan.sector_weights)
+                                                       * plan.modes.frequencies.max(initial=0.0))
+        work = 8.0 * entries * 20 * max(span, 1.0) * sectors
         values = {"bath.max_quanta": plan.max_quanta, "bath.fock_modes": plan.modes.count,
                   "bath.max_occupation": plan.max_occupation, "run.samples": samples}
-        return Estimate(states=states, memory_bytes=space + SAMPLE_BYTES * samples, work=work,
-                        keys=(*SIZE_KEYS, "run.samples"), breakdown=breakdown, values=values)
+        return Estimate(states=states, memory_bytes=space + series, work=work,
+                        keys=(*SIZE_KEYS, "run.samples"), breakdown=breakdown, values=values,
+                        scaling={"run.samples": 1.0})
 
     def refined(self) -> "FockSolver | None":
         """The same bath with max_quanta and max_occupation raised by one.
@@ -450,6 +464,46 @@ def fock_box_length(scenario, model) -> float:
     """
     t_max = last_sample_time(scenario)
     return returning_box_length(t_max, emitted_speed(model, scenario), BOX_MARGIN)
+
+
+def grid_points(plan: FockPlan) -> int:
+    """Bins of the axis-momentum grid `momentum_grid` will build, without the basis.
+
+    The reachable kicks sum_j n_j k_j.axis are bounded by filling the modes with the largest
+    (smallest) axial momenta first, up to max_occupation each and N quanta in all, N the largest
+    quanta number with an allowed level (`allowed_level`).  1D: the box lattice points between
+    the bounds; 3D: MOMENTUM_BINS_3D.
+
+    Parameters
+    ----------
+    plan : FockPlan
+
+    Returns
+    -------
+    int
+        G, at least the bins `momentum_grid` builds (exact when the extreme kicks are reachable).
+    """
+    if plan.modes.box_length is None:
+        return MOMENTUM_BINS_3D
+    quanta = max((n for n in range(plan.max_quanta + 1)
+                  if allowed_level(n, plan.start_level, plan.rotating_wave) is not None),
+                 default=0)
+    along = plan.modes.momenta @ plan.axis
+
+    def extreme(values):
+        left, total = quanta, 0.0
+        for value in values:
+            take = min(plan.max_occupation, left)
+            if value <= 0 or take <= 0:
+                break
+            total, left = total + take * value, left - take
+        return total
+
+    top = extreme(np.sort(along)[::-1])
+    bottom = -extreme(np.sort(-along)[::-1])
+    sectors = plan.sector_momenta @ plan.axis
+    step = 2 * np.pi / plan.modes.box_length
+    return int(round((sectors.max() - bottom) / step) - round((sectors.min() - top) / step) + 1)
 
 
 def momentum_grid(plan: FockPlan, basis: FockBasis):

@@ -341,8 +341,10 @@ class MarkovSolver(Solver):
         values = {"grid.points": points, "grid.span": span, "run.samples": samples}
         if s.dimensions == 3:
             values["grid.directions"] = s.grid.directions or POLAR_DIRECTIONS
+        # the Liouvillian and the ODE vectors hold ~ states^2 ~ grid.points^2 numbers
         return Estimate(states=max(n for n, _, _ in sizes), memory_bytes=sum(breakdown.values()),
-                        work=work, keys=keys, breakdown=breakdown, values=values)
+                        work=work, keys=keys, breakdown=breakdown, values=values,
+                        scaling={"grid.points": 2.0, "run.samples": 1.0})
 
     def evolve(self, times):
         """Solve the Lindblad master equation of every sector and combine them.

@@ -32,7 +32,7 @@ PACKET_NODES_1D = 401
 PACKET_NODES_3D = 64
 #: (packet nodes x sample times) float arrays alive at once in `evolve` (populations, their
 #: integrals, transition numbers and the temporaries between them)
-NODE_TIME_ARRAYS = 10
+NODE_TIME_ARRAYS = 6
 
 
 def two_level_populations(up, down, excited_start: bool, t):
@@ -118,7 +118,7 @@ class PerturbativeSolver(Solver):
         memory = samples * (SAMPLE_BYTES + 8.0 * NODE_TIME_ARRAYS * nodes)
         return Estimate(states=nodes, memory_bytes=memory, work=40.0 * nodes * samples,
                         keys=("run.samples",), breakdown={"run.samples": memory},
-                        values={"run.samples": samples})
+                        values={"run.samples": samples}, scaling={"run.samples": 1.0})
 
     def evolve(self, times):
         """Golden-rule rate equations per packet momentum, with their recoil moments.

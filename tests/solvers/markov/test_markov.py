@@ -153,6 +153,7 @@ def test_vacuum_population_is_the_template_average_3d(make_scenario):
     s = load_scenario(make_scenario(MARKOV, model="one-particle", dims=3, gap=0.4, strength=0.3,
                                     momentum=0.5, width=2.0, t_max=1000.0, samples=21,
                                     grid__points=19))
+    assert s.field.mass == 0 and s.field.smearing == 0  # the closed form's field
     r = run(s)
     assert np.max(np.abs(r.excited - written_decay(s, r.times))) < 1e-6
     assert r.excited[-1] < 0.2
