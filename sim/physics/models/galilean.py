@@ -21,74 +21,22 @@ class Galilean(COMModel):
     name = "galilean"
 
     def energy(self, level, p):
-        """Level energy above M_g: p^2 / 2M, plus Omega for the excited level.
-
-        Parameters
-        ----------
-        level : int
-            GROUND (0) or EXCITED (1).
-        p : array_like
-            COM momentum magnitude (momentum units).
-
-        Returns
-        -------
-        numpy.ndarray
-            E_level(p) - M_g (energy units).
-        """
+        """Level energy above M_g: p^2 / 2M, plus Omega for the excited level."""
         p = np.asarray(p, dtype=float)
         return p * p / (2 * self.ground_mass) + (self.gap if level == EXCITED else 0.0)
 
     def momentum(self, level, energy):
-        """Inverse of `energy`: |p| = sqrt(2 M (E - offset)), offset Omega (excited) or 0.
-
-        Parameters
-        ----------
-        level : int
-            GROUND (0) or EXCITED (1).
-        energy : array_like
-            Energy above M_g (energy units).
-
-        Returns
-        -------
-        numpy.ndarray
-            |p| (momentum units); nan where E < offset.
-        """
+        """Inverse of `energy`: |p| = sqrt(2 M (E - offset)), offset Omega (excited) or 0."""
         kinetic = np.asarray(energy, dtype=float) - (self.gap if level == EXCITED else 0.0)
         with np.errstate(invalid="ignore"):
             return np.where(kinetic >= 0, np.sqrt(2 * self.ground_mass * np.maximum(kinetic, 0)), np.nan)
 
     def velocity(self, level, p):
-        """Velocity dE/dp = p / M, the same for both levels.
-
-        Parameters
-        ----------
-        level : int
-            GROUND (0) or EXCITED (1) (unused: one mass).
-        p : array_like
-            COM momentum magnitude (momentum units).
-
-        Returns
-        -------
-        numpy.ndarray
-            p / M (units of c: dimensionless).
-        """
+        """Velocity dE/dp = p / M, the same for both levels."""
         return np.asarray(p, dtype=float) / self.ground_mass
 
     def inertia(self, level, p):
-        """p / (dE/dp) = M for both levels.
-
-        Parameters
-        ----------
-        level : int
-            GROUND (0) or EXCITED (1) (unused: one mass).
-        p : array_like
-            COM momentum magnitude (momentum units); only its shape is used.
-
-        Returns
-        -------
-        numpy.ndarray
-            M = M_g (energy units), the shape of `p`.
-        """
+        """p / (dE/dp) = M for both levels."""
         return np.full(np.shape(p), self.ground_mass)
 
     def rest_emission_momentum(self):
@@ -96,10 +44,5 @@ class Galilean(COMModel):
 
         k* = 2 Omega / (1 + sqrt(1 + 2 Omega/M)), the positive root written free of
         cancellation.
-
-        Returns
-        -------
-        float
-            k* (momentum units).
         """
         return 2 * self.gap / (1 + np.sqrt(1 + 2 * self.gap / self.ground_mass))

@@ -25,76 +25,24 @@ class RelativisticEnergies(COMModel):
         return self.gap if level == EXCITED else 0.0
 
     def energy(self, level, p):
-        """sqrt(p^2 + M^2) - M_g = (sqrt(p^2 + M^2) - M) + (M - M_g).
-
-        Parameters
-        ----------
-        level : int
-            GROUND (0) or EXCITED (1).
-        p : array_like
-            COM momentum magnitude (momentum units).
-
-        Returns
-        -------
-        numpy.ndarray
-            E_level(p) - M_g (energy units), free of cancellation for p << M.
-        """
+        """sqrt(p^2 + M^2) - M_g = (sqrt(p^2 + M^2) - M) + (M - M_g)."""
         return relativistic_kinetic(p, self._mass(level)) + self._offset(level)
 
     def momentum(self, level, energy):
-        """|p| = sqrt(x (x + 2M)) with x = E - M the kinetic energy.
-
-        Parameters
-        ----------
-        level : int
-            GROUND (0) or EXCITED (1).
-        energy : array_like
-            Energy above M_g (energy units); x = energy - (M - M_g).
-
-        Returns
-        -------
-        numpy.ndarray
-            |p| (momentum units); nan where x < 0.
-        """
+        """|p| = sqrt(x (x + 2M)) with x = E - M the kinetic energy."""
         x = np.asarray(energy, dtype=float) - self._offset(level)
         with np.errstate(invalid="ignore"):
             return np.where(x >= 0, np.sqrt(np.maximum(x, 0) * (np.maximum(x, 0) + 2 * self._mass(level))),
                             np.nan)
 
     def velocity(self, level, p):
-        """Velocity dE/dp = p / sqrt(p^2 + M^2).
-
-        Parameters
-        ----------
-        level : int
-            GROUND (0) or EXCITED (1).
-        p : array_like
-            COM momentum magnitude (momentum units).
-
-        Returns
-        -------
-        numpy.ndarray
-            p / E_level(p) (units of c: dimensionless, < 1).
-        """
+        """Velocity dE/dp = p / sqrt(p^2 + M^2)."""
         p = np.asarray(p, dtype=float)
         m = self._mass(level)
         return p / np.sqrt(p * p + m * m)
 
     def inertia(self, level, p):
-        """p / (dE/dp) = E_level(p) = sqrt(p^2 + M^2).
-
-        Parameters
-        ----------
-        level : int
-            GROUND (0) or EXCITED (1).
-        p : array_like
-            COM momentum magnitude (momentum units).
-
-        Returns
-        -------
-        numpy.ndarray
-            The total energy (energy units).
-        """
+        """p / (dE/dp) = E_level(p) = sqrt(p^2 + M^2)."""
         return self.total_energy(level, p)
 
     def total_energy(self, level, p):

@@ -36,20 +36,7 @@ class OneParticle(RelativisticEnergies):
     name = "one-particle"
 
     def vertex(self, p_excited, p_ground):
-        """V = 1 / sqrt(2 E_e(p_e) * 2 E_g(p_g)) (inverse energy units).
-
-        Parameters
-        ----------
-        p_excited : array_like
-            COM momentum magnitude of the excited level (momentum units).
-        p_ground : array_like
-            COM momentum magnitude of the ground level (momentum units).
-
-        Returns
-        -------
-        numpy.ndarray
-            V (1 / energy units).
-        """
+        """V = 1 / sqrt(2 E_e(p_e) * 2 E_g(p_g)) (inverse energy units)."""
         return 1.0 / np.sqrt(4 * self.total_energy(EXCITED, p_excited)
                              * self.total_energy(GROUND, p_ground))
 
@@ -59,11 +46,6 @@ class OneParticle(RelativisticEnergies):
         "rest-frame": lambda_2 = lambda sqrt(4 M_e E_g*), E_g* = sqrt(k*^2 + M_g^2), so that
         the rest-frame rate equals the newton-wigner one (k* being the momentum a massless
         quantum carries away); otherwise ("nonrelativistic") lambda_2 = lambda sqrt(4 M_g M_e).
-
-        Returns
-        -------
-        float
-            lambda_2 (energy units times those of lambda: energy^((5 - d)/2)).
         """
         if self.matching == "rest-frame":
             k_star = self.rest_emission_momentum()
