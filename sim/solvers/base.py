@@ -7,6 +7,7 @@ evolution; the Result with its summary is assembled one layer up (`sim.result.as
 
 from __future__ import annotations
 
+import math
 import os
 import time
 from dataclasses import dataclass, field
@@ -39,6 +40,9 @@ class Estimate:
         Estimated peak memory of the run (bytes).
     work : float
         Estimated number of floating-point operations (dimensionless count).
+    seconds : float, optional
+        Estimated wall time of the evolution on this machine (seconds), from the method's
+        measured cost model; nan where the method has none.
     keys : tuple of str, optional
         Scenario keys that set the size, the most effective first; named in a refusal
         (`check_resources`).
@@ -62,6 +66,7 @@ class Estimate:
     states: int
     memory_bytes: float
     work: float
+    seconds: float = math.nan
     keys: tuple[str, ...] = ()
     breakdown: dict = field(default_factory=dict, hash=False, compare=False)
     values: dict = field(default_factory=dict, hash=False, compare=False)
@@ -162,10 +167,12 @@ class Estimate:
         Returns
         -------
         str
-            "about N states, X GiB of memory, Y floating-point operations" (1 GiB = 2^30 bytes).
+            "about N states, X GiB of memory, Y floating-point operations[, about Z s]"
+            (1 GiB = 2^30 bytes; the time where `seconds` is known).
         """
-        return (f"about {self.states:,} states, {self.memory_bytes / 2**30:.3g} GiB of memory, "
+        text = (f"about {self.states:,} states, {self.memory_bytes / 2**30:.3g} GiB of memory, "
                 f"{self.work:.2g} floating-point operations")
+        return text if math.isnan(self.seconds) else f"{text}, about {self.seconds:.2g} s"
 
 
 def credit(breakdown: dict, nbytes: float, factors: dict) -> None:
