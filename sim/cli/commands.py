@@ -24,6 +24,7 @@ import sys
 import warnings
 from pathlib import Path
 
+from ..config.registry import COMPARE_BUDGET_SECONDS
 from ..errors import OutputExists, ScenarioError, UsageError
 
 EXIT_BAD_INPUT = 2
@@ -167,7 +168,7 @@ def cmd_run(args) -> int:
         raise UsageError("run: --out DIR is required (or --dry-run)")
     out = Path(args.out)
     summary = run_to_folder(scenario, out, check=args.check, force=args.force,
-                            progress=sys.stderr.isatty())
+                            progress=_progress(args))
     print_run_summary(summary, out)
     return 0
 
@@ -193,7 +194,7 @@ def cmd_demo(args) -> int:
     from ..workflows.demo import run_demo
 
     out = Path(args.out)
-    report = run_demo(out, force=args.force)
+    report = run_demo(out, force=args.force, progress=_progress(args), quiet=not _progress(args))
     summary = report["exact"]
     print(f"{report['title']} (simulated)")
     print(f"  golden-rule rate {report['rate']:.6g}; exact fitted rate {summary['rate_fitted']:.6g}")
@@ -205,31 +206,80 @@ def cmd_demo(args) -> int:
     return 0
 
 
+def _number(value, fmt: str = ".4g") -> str:
+    """A table cell: the number formatted, or "-" for None or nan."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return "-"
+    return format(value, fmt)
+
+
+def print_comparison(summary: dict, out: Path) -> None:
+    """Print the compare table: method, fitted rate, largest |P_e - P_e(exact)|, verdict, warnings.
+
+    Then one line per skipped or failed method with its reason.
+
+    Parameters
+    ----------
+    summary : dict
+        The compare folder's summary (`sim.workflows.compare.compare_summary`); rates in the
+        units under "units" for a scenario with units, natural units otherwise.
+    out : Path
+        The compare folder (printed).
+    """
+    unit = summary.get("units", {}).get("rate_fitted", "natural units")
+    differences = summary["max_difference_from_exact"] or {}
+    print(f"{summary['title']}: compared (simulated); golden-rule rate "
+          f"{_number(summary['rate_golden_rule'], '.6g')} [{unit}]")
+    print(f"  {'method':<13}{'fitted rate':>13}  {'max |dP_e| vs exact':>20}  verdict")
+    for method in summary["methods"]:
+        fit = summary.get("fits", {}).get(method) or {}
+        verdict = fit.get("verdict") or ("reference" if method == "exact" else "ran")
+        warns = len(summary["warnings"].get(method, []))
+        verdict += f"; {warns} warning{'s' if warns != 1 else ''}" if warns else ""
+        print(f"  {method:<13}{_number(summary['rate_fitted'].get(method)):>13}  "
+              f"{_number(differences.get(method), '.3g'):>20}  {verdict}")
+    for kind in ("skipped", "failed"):
+        for method, reason in summary.get(kind, {}).items():
+            print(f"  {method:<13}{kind}: {reason}")
+    said: dict[str, list[str]] = {}  # a warning every method gives is printed once
+    for method, warns in summary["warnings"].items():
+        for w in warns:
+            said.setdefault(w, []).append(method)
+    for w, methods in said.items():
+        print(f"  warning ({', '.join(methods)}): {w}")
+    print(f"  files in {out}/")
+
+
 def cmd_compare(args) -> int:
-    """`recoilsim compare`: every method on the scenario, written into ``--out``.
+    """`recoilsim compare`: every method on the scenario, written into ``--out``, and a table.
 
     Parameters
     ----------
     args : argparse.Namespace
-        ``scenario`` (TOML file), ``out`` (folder) and ``force`` (bool).
+        ``scenario`` (TOML file), ``out`` (folder), ``force`` and ``quiet`` (bools) and
+        ``budget`` (seconds per method).
 
     Returns
     -------
     int
-        The process exit status: 0.
+        The process exit status: 0 when every method that was not skipped ran, 1 when one
+        failed while running.
 
     Raises
     ------
     ScenarioError
-        If the scenario does not load or validate, or a method that may not skip it refuses it.
+        If the scenario does not load or validate, or no method gives a result.
     OutputExists
         If ``--out`` is a file, or a non-empty folder without ``--force``.
     """
     from ..workflows.compare import compare_to_folder
 
-    compare_to_folder(_load(args.scenario), Path(args.out), force=args.force)
-    print(f"comparison written to {args.out}/")
-    return 0
+    out = Path(args.out)
+    comparison = compare_to_folder(_load(args.scenario), out, force=args.force,
+                                   budget=args.budget, progress=_progress(args),
+                                   quiet=not _progress(args))
+    print_comparison(comparison.summary, out)
+    return 1 if comparison.failed else 0
 
 
 def cmd_sweep(args) -> int:
@@ -264,7 +314,7 @@ def cmd_sweep(args) -> int:
     axes = [parse_vary(text) for text in args.vary]
     out = Path(args.out)
     counts = run_sweep(scenario, axes, out, workers=args.workers, scheduler=args.scheduler,
-                       progress=sys.stderr.isatty(), force=args.force)
+                       progress=_progress(args), force=args.force)
     print(f"sweep of {counts['points']} points (simulated): {counts['ok']} ok, "
           f"{counts['failed']} failed, {counts['skipped']} finished earlier -> {out / TABLE_FILE}")
     if counts["lost"]:
@@ -323,12 +373,30 @@ def _force_option(parser, what: str = "an existing output folder") -> None:
 
 
 def _command(sub, name: str, func, help_text: str, *, scenario: bool = True):
-    """A sub-command `name` run by `func`, with the SCENARIO argument unless `scenario` is False."""
+    """A sub-command `name` run by `func`, with --quiet, and SCENARIO unless `scenario` is False."""
     p = sub.add_parser(name, help=help_text)
     if scenario:
         p.add_argument("scenario", help="scenario TOML file")
+    p.add_argument("--quiet", action="store_true",
+                   help="no progress bars or status lines (results and errors still print)")
     p.set_defaults(func=func)
     return p
+
+
+def _progress(args) -> bool:
+    """Progress bars and status lines: on a terminal (stderr), unless --quiet."""
+    return sys.stderr.isatty() and not getattr(args, "quiet", False)
+
+
+def _budget_option(text: str) -> float:
+    """--budget SECONDS: a positive finite number."""
+    try:
+        value = float(text)
+    except ValueError:
+        value = math.nan
+    if not (math.isfinite(value) and value > 0):
+        raise argparse.ArgumentTypeError(f"expected a positive number of seconds, got {text!r}")
+    return value
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -360,6 +428,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = _command(sub, "compare", cmd_compare, "perturbative, markov, exact (and fock) side by side")
     p.add_argument("--out", required=True, help="output folder")
+    p.add_argument("--budget", type=_budget_option, default=COMPARE_BUDGET_SECONDS, metavar="SECONDS",
+                   help="skip a method whose estimated wall time exceeds this "
+                        f"(default {COMPARE_BUDGET_SECONDS:g} s)")
     _force_option(p)
 
     p = _command(sub, "sweep", cmd_sweep, "sweep scenario keys over values, in parallel, resumable")

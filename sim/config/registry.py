@@ -48,6 +48,8 @@ MODEL_ENTRIES: dict[str, Entry] = {
 #: method key -> "module:class" (the public `sim.METHODS`)
 METHODS: dict[str, str] = {name: entry.target for name, entry in METHOD_ENTRIES.items()}
 METHOD_NAMES: tuple[str, ...] = tuple(METHOD_ENTRIES)
+#: `recoilsim compare --budget` default: the largest estimated wall time of one method (seconds)
+COMPARE_BUDGET_SECONDS = 600.0
 MODEL_NAMES: tuple[str, ...] = tuple(MODEL_ENTRIES)
 
 

@@ -1,66 +1,200 @@
-"""`recoilsim compare`: every method on one scenario, side by side.
+"""`recoilsim compare`: every method on one scenario, side by side, within a time budget.
 
-Runs every registered method (`sim.config.registry.METHOD_NAMES`: perturbative, markov, exact and
-fock, the last only when it accepts the scenario) through `sim.result.run`, and writes into one
-folder, atomically:
+Every registered method (`sim.config.registry.METHOD_NAMES`: perturbative, markov, exact, fock)
+is first sized (`Solver.estimate`); a method that refuses the scenario, would not fit the memory
+guard, or whose estimated wall time exceeds the budget is skipped with its reason, before
+anything runs.  The others run in turn; one that fails while running is reported as that method's
+failure and the comparison goes on.  Written into one folder, atomically:
 
     compare.csv   t, then the excited population of each method that ran (column = method key),
                   every curve interpolated linearly onto the first method's sample times;
     compare.png   all curves on a log axis, and their differences from exact below;
-    summary.json  "simulated": true, methods run and skipped (with the reason), fitted and
-                  golden-rule rates, largest difference from exact, each method's warnings.
+    summary.json  "simulated": true, methods run, skipped and failed (each with its reason),
+                  each method's estimate, fitted and golden-rule rates, largest difference from
+                  exact, each method's warnings.
 """
 
 from __future__ import annotations
 
+import math
+import sys
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from ..config.registry import METHOD_NAMES
-from ..errors import ScenarioError
+from ..config.registry import COMPARE_BUDGET_SECONDS, METHOD_NAMES
+from ..errors import ResourceError, ScenarioError
 from ..io.atomic import atomic_write_text
 from ..io.writers import csv_text, output_folder, write_json
 from ..physics.checks import load_scenario
 from ..plotting import compare_figure, save
 from ..plotting.compare import REFERENCE
-from ..result import run
+from ..result import result_of
+from ..solvers import solver_for
+from ..solvers.base import refusal
 
 #: methods in the order they are run and written
 COMPARED = METHOD_NAMES
-#: methods that may refuse a scenario (reported as skipped instead of failing the comparison)
-REFUSING = ("fock",)
+#: default wall-time budget of one method (seconds; `--budget`)
+DEFAULT_BUDGET = COMPARE_BUDGET_SECONDS
 
 
-def run_methods(scenario) -> tuple[dict, dict]:
-    """Results of every method that runs, and method -> reason for those skipped.
+@dataclass
+class Comparison:
+    """What `compare_methods` found: the results, and why the other methods did not give one.
+
+    Parameters
+    ----------
+    results : dict
+        Method key -> `Result` of each method that ran, in the order of `COMPARED`.
+    skipped : dict
+        Method key -> reason (one line) for each method not run: it refused the scenario, or
+        its estimate exceeds the memory guard or the time budget.
+    failed : dict
+        Method key -> reason (one line) for each method that failed while running.
+    estimates : dict
+        Method key -> {"seconds": estimated wall time (s, None if unknown), "memory_bytes":
+        estimated memory (bytes)} for each method that could be sized.
+    budget : float
+        The time budget of one method (seconds).
+    summary : dict, optional
+        The summary.json written for it (`compare_summary`), once written.
+    """
+
+    results: dict
+    skipped: dict
+    failed: dict
+    estimates: dict
+    budget: float
+    summary: dict | None = None
+
+
+def _problems(exc: ScenarioError) -> str:
+    """A ScenarioError's problems as one line."""
+    return "; ".join(exc.problems)
+
+
+def plan_method(scenario, method: str, budget: float, progress: bool = False):
+    """Size one method on the scenario: its solver, its estimate, or why it will not run.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        A loaded scenario.
+    method : str
+        A key of `COMPARED`.
+    budget : float
+        Largest estimated wall time allowed (seconds).
+    progress : bool
+        Give the solver a progress bar.
+
+    Returns
+    -------
+    solver : Solver or None
+        The solver to run, None when skipped.
+    estimate : Estimate or None
+        Its estimate, None when the method refused the scenario before sizing it.
+    reason : str or None
+        Why the method is skipped (refusal, memory guard or budget), None when it runs.
+    """
+    try:
+        solver = solver_for(scenario, method, progress=progress)
+        estimate = solver.estimate()
+    except ScenarioError as exc:
+        return None, None, "does not accept this scenario: " + _problems(exc)
+    memory = refusal(estimate, method)
+    if memory is not None:
+        return None, estimate, "would not fit in memory: " + memory
+    if estimate.seconds > budget:
+        return None, estimate, (f"estimated {estimate.seconds:.3g} s, over the budget of "
+                                f"{budget:.3g} s (raise --budget, or lower "
+                                f"{estimate.named(estimate.dominant_key)})")
+    return solver, estimate, None
+
+
+def run_planned(solver):
+    """Run one planned solver: its Result, or the one-line reason it failed.
+
+    Parameters
+    ----------
+    solver : Solver
+
+    Returns
+    -------
+    result : Result or None
+    reason : str or None
+        None on success; else the refusal (ScenarioError, ResourceError) or, for any other
+        error (an integrator's, a numerical one, MemoryError), its type and message.
+    """
+    try:
+        return result_of(solver), None
+    except ScenarioError as exc:
+        return None, "refused while running: " + _problems(exc)
+    except ResourceError as exc:
+        return None, f"refused while running: {exc}"
+    except Exception as exc:  # noqa: BLE001 - one method's failure (an integrator's, a
+        # numerical one, out of memory) is reported as that method's, and the comparison goes on
+        return None, f"failed: {type(exc).__name__}: {exc}"
+
+
+def _say(quiet: bool, text: str) -> None:
+    """A progress line on stderr unless `quiet`."""
+    if not quiet:
+        print(f"recoilsim compare: {text}", file=sys.stderr, flush=True)
+
+
+def compare_methods(scenario, budget: float = DEFAULT_BUDGET, *, progress: bool = False,
+                    quiet: bool = True) -> Comparison:
+    """Size every method, skip those over the memory or time budget, run the others.
 
     Parameters
     ----------
     scenario : Scenario
         A loaded scenario (`sim.physics.checks.load_scenario`).
+    budget : float
+        Largest estimated wall time of one method (seconds; a method without a time estimate
+        runs).
+    progress : bool
+        Progress bars inside long solver runs.
+    quiet : bool
+        No status lines on stderr.
 
     Returns
     -------
-    results : dict
-        Method key -> `Result`, in the order of `COMPARED`.
-    skipped : dict
-        Method key -> reason (one line) for each method of `REFUSING` that refused the scenario.
+    Comparison
 
     Raises
     ------
     ScenarioError
-        If a method not in `REFUSING` refuses the scenario.
+        If no method gives a result (every reason listed).
     """
-    results, skipped = {}, {}
+    if not budget > 0:
+        raise ScenarioError(f"--budget {budget!r}: expected a positive number of seconds")
+    plans, skipped, estimates = {}, {}, {}
     for method in COMPARED:
-        try:
-            results[method] = run(scenario, method=method)
-        except ScenarioError as exc:
-            if method not in REFUSING:
-                raise
-            skipped[method] = "does not accept this scenario: " + "; ".join(exc.problems)
-    return results, skipped
+        solver, estimate, reason = plan_method(scenario, method, budget, progress)
+        if estimate is not None:
+            estimates[method] = {"seconds": None if math.isnan(estimate.seconds)
+                                 else estimate.seconds, "memory_bytes": estimate.memory_bytes}
+        if reason is None:
+            plans[method] = solver
+        else:
+            skipped[method] = reason
+            _say(quiet, f"skipping {method}: {reason}")
+    results, failed = {}, {}
+    for method, solver in plans.items():
+        seconds = estimates[method]["seconds"]
+        _say(quiet, f"running {method}" + (f" (estimated {seconds:.2g} s)" if seconds else ""))
+        result, reason = run_planned(solver)
+        if result is None:
+            failed[method] = reason
+            _say(quiet, f"{method} {reason}")
+        else:
+            results[method] = result
+    if not results:
+        raise ScenarioError([f"compare: {m}: {r}" for m, r in {**skipped, **failed}.items()])
+    return Comparison(results, skipped, failed, estimates, float(budget))
 
 
 def common_curves(results: dict) -> tuple[np.ndarray, dict]:
@@ -69,7 +203,7 @@ def common_curves(results: dict) -> tuple[np.ndarray, dict]:
     Parameters
     ----------
     results : dict
-        Method key -> `Result` (at least one), as from `run_methods`.
+        Method key -> `Result` (at least one), as in `Comparison.results`.
 
     Returns
     -------
@@ -83,48 +217,91 @@ def common_curves(results: dict) -> tuple[np.ndarray, dict]:
     return times, {m: np.interp(times, r.times, r.excited) for m, r in results.items()}
 
 
-def compare_summary(scenario, results: dict, skipped: dict, curves: dict) -> dict:
+def _rate_out(scenario, rate):
+    """A rate (natural units) in the scenario's output units; None stays None."""
+    if rate is None or scenario.units is None:
+        return rate
+    return float(scenario.units.to_output("rate_fitted", rate))
+
+
+def compare_summary(scenario, comparison: Comparison, curves: dict) -> dict:
     """The compare folder's summary.json contents.
 
     Parameters
     ----------
     scenario : Scenario
         The compared scenario (its title and its source as read are recorded).
-    results : dict
-        Method key -> `Result` of each method that ran.
-    skipped : dict
-        Method key -> reason for each method skipped.
+    comparison : Comparison
+        From `compare_methods`.
     curves : dict
         Method key -> excited-state population on common sample times (`common_curves`).
 
     Returns
     -------
     dict
-        "title", "simulated", "note", "methods", "skipped", "rate_golden_rule" and
-        "rate_fitted" (method -> rate; inverse time, natural units as in each Result's
-        summary), "max_difference_from_exact" (method -> largest absolute difference of the
-        excited population from exact; None without an exact run), "warnings" (method ->
-        list) and "scenario".
+        "title", "simulated", "note", "methods", "skipped", "failed" (method -> reason),
+        "estimates" (method -> seconds and bytes), "budget_seconds", "rate_golden_rule" and
+        "rate_fitted" (method -> rate; inverse time in the output units of a scenario with
+        units, given under "units", natural units otherwise), "max_difference_from_exact"
+        (method -> largest absolute difference of the excited population from exact; None
+        without an exact run), "warnings" (method -> list) and "scenario".
     """
+    results = comparison.results
     reference = curves.get(REFERENCE)
-    return {
+    summary = {
         "title": scenario.title,
         "simulated": True,
         "note": "simulated data from recoilsim, not a measurement",
         "methods": list(results),
-        "skipped": skipped,
-        "rate_golden_rule": next(iter(results.values())).summary["rate_golden_rule"],
-        "rate_fitted": {m: r.summary["rate_fitted"] for m, r in results.items()},
+        "skipped": comparison.skipped,
+        "failed": comparison.failed,
+        "estimates": comparison.estimates,
+        "budget_seconds": comparison.budget,
+        "rate_golden_rule": _rate_out(scenario,
+                                      next(iter(results.values())).summary["rate_golden_rule"]),
+        "rate_fitted": {m: _rate_out(scenario, r.summary["rate_fitted"])
+                        for m, r in results.items()},
         "max_difference_from_exact": (
             {m: float(np.max(np.abs(c - reference))) for m, c in curves.items() if m != REFERENCE}
             if reference is not None else None),
         "warnings": {m: r.warnings for m, r in results.items()},
         "scenario": dict(scenario.source),
     }
+    if scenario.units is not None:
+        unit = scenario.units.column_unit("rate_fitted")
+        summary["units"] = {"t": scenario.units.column_unit("t"), "rate_golden_rule": unit,
+                            "rate_fitted": unit}
+    return summary
 
 
-def compare_to_folder(scenario, out, force: bool = False) -> Path:
-    """Run every method on `scenario` and write compare.csv, compare.png, summary.json to `out`.
+def write_comparison(scenario, comparison: Comparison, stage: Path) -> dict:
+    """Write compare.csv, compare.png and summary.json of a comparison into `stage`.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    comparison : Comparison
+    stage : Path
+        An existing folder (the output folder's stage).
+
+    Returns
+    -------
+    dict
+        The summary written (`compare_summary`).
+    """
+    units = scenario.units
+    times, curves = common_curves(comparison.results)
+    columns = {"t": units.to_output("t", times) if units else times, **curves}
+    atomic_write_text(stage / "compare.csv", csv_text(columns))
+    save(compare_figure(scenario, times, curves), stage / "compare.png")
+    summary = compare_summary(scenario, comparison, curves)
+    write_json(stage / "summary.json", summary)
+    return summary
+
+
+def compare_to_folder(scenario, out, force: bool = False, *, budget: float = DEFAULT_BUDGET,
+                      progress: bool = False, quiet: bool = True) -> Comparison:
+    """Compare every method on `scenario` and write compare.csv, compare.png, summary.json.
 
     Parameters
     ----------
@@ -135,11 +312,17 @@ def compare_to_folder(scenario, out, force: bool = False) -> Path:
         compare.csv are in output units for a scenario with units, natural units otherwise.
     force : bool
         Replace a non-empty `out` that recoilsim wrote (`sim.io.writers.refuse_existing`).
+    budget : float
+        Largest estimated wall time of one method (seconds).
+    progress : bool
+        Progress bars inside long solver runs.
+    quiet : bool
+        No status lines on stderr.
 
     Returns
     -------
-    Path
-        `out`.
+    Comparison
+        The results, the reasons of every method skipped or failed, and the summary written.
 
     Raises
     ------
@@ -147,17 +330,10 @@ def compare_to_folder(scenario, out, force: bool = False) -> Path:
         Before any run, if `out` is a file or the current folder, or a non-empty folder and
         `force` is not given, or not recoilsim's own (or holding files it did not write).
     ScenarioError
-        If the scenario does not load or validate, or a method other than those of `REFUSING`
-        refuses it.
+        If the scenario does not load or validate, or no method gives a result.
     """
     scenario = load_scenario(scenario)
-    units = scenario.units
-    out = Path(out)
-    with output_folder(out, force, kind="compare") as stage:  # refused before any run
-        results, skipped = run_methods(scenario)
-        times, curves = common_curves(results)
-        columns = {"t": units.to_output("t", times) if units else times, **curves}
-        atomic_write_text(stage / "compare.csv", csv_text(columns))
-        save(compare_figure(scenario, times, curves), stage / "compare.png")
-        write_json(stage / "summary.json", compare_summary(scenario, results, skipped, curves))
-    return out
+    with output_folder(Path(out), force, kind="compare") as stage:  # refused before any run
+        comparison = compare_methods(scenario, budget, progress=progress, quiet=quiet)
+        comparison.summary = write_comparison(scenario, comparison, stage)
+    return comparison

@@ -61,7 +61,7 @@ def bundled(name: str) -> Path:
     return Path(__file__).parents[1] / "data" / f"{name}.toml"
 
 
-def build_demo(folder: Path, scenario=None) -> dict:
+def build_demo(folder: Path, scenario=None, *, progress: bool = False, quiet: bool = True) -> dict:
     """Write the demo's files into an existing empty `folder`; returns a short report.
 
     Parameters
@@ -71,6 +71,10 @@ def build_demo(folder: Path, scenario=None) -> dict:
         folder itself is not staged (`run_demo` does that).
     scenario : Scenario, optional
         The scenario to demonstrate; default: `default_scenario()`.
+    progress : bool
+        Progress bars inside long solver runs and the sweep.
+    quiet : bool
+        No status lines on stderr.
 
     Returns
     -------
@@ -88,14 +92,15 @@ def build_demo(folder: Path, scenario=None) -> dict:
     report = rates_report(scenario, None)
     write_json(folder / "rates.json", report)
     write_rates_figure(scenario, folder / "rates.png")
-    exact = run(scenario, method="exact")
+    comparison = compare_to_folder(scenario, folder / "compare", progress=progress, quiet=quiet)
+    exact = comparison.results.get("exact") or run(scenario, method="exact")  # run once, reused
     write_result(exact, folder / "exact")
-    compare_to_folder(scenario, folder / "compare")
-    counts = run_sweep(scenario, [parse_vary(DEMO_SWEEP)], folder / "sweep", workers=2)
+    counts = run_sweep(scenario, [parse_vary(DEMO_SWEEP)], folder / "sweep", workers=2,
+                       progress=progress)
     return {"rate": report["rate"], "exact": exact.summary, "sweep": counts}
 
 
-def run_demo(out: Path, force: bool = False) -> dict:
+def run_demo(out: Path, force: bool = False, *, progress: bool = False, quiet: bool = True) -> dict:
     """`recoilsim demo`: build the demo into `out` (atomically as a whole).
 
     Parameters
@@ -104,6 +109,10 @@ def run_demo(out: Path, force: bool = False) -> dict:
         The demo folder, replaced as a whole once complete.
     force : bool
         Replace a non-empty `out` that recoilsim wrote (`sim.io.writers.refuse_existing`).
+    progress : bool
+        Progress bars inside long solver runs and the sweep.
+    quiet : bool
+        No status lines on stderr.
 
     Returns
     -------
@@ -119,7 +128,7 @@ def run_demo(out: Path, force: bool = False) -> dict:
     """
     scenario = default_scenario()
     with output_folder(out, force=force, kind="demo", folders=DEMO_FOLDERS) as stage:
-        report = build_demo(stage, scenario)
+        report = build_demo(stage, scenario, progress=progress, quiet=quiet)
     return {"title": scenario.title, **report}
 
 

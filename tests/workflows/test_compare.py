@@ -66,33 +66,96 @@ def test_no_method_is_skipped_on_a_scenario_every_method_takes(folder):
 
 
 @pytest.mark.parametrize("method", COMPARED)
-def test_only_a_fock_refusal_is_reported_as_skipped(make_scenario, tmp_path, monkeypatch,
-                                                   method):
-    # a refusal (ScenarioError) injected into one method's run: fock is then skipped with the
-    # refusal's own reason while every other method runs; a refusal by any other method must
-    # reach the caller, with no folder written.  (Every real fock refusal, a thermal field, is
-    # refused by exact too, and a rotating-wave scenario keeps fock's Fock space small, so the
-    # refusal is injected.)
+def test_a_refusing_method_is_skipped_with_its_reason_and_the_rest_run(make_scenario, tmp_path,
+                                                                       monkeypatch, method):
+    # a refusal (ScenarioError) injected into one method's set-up: that method is skipped with
+    # the refusal's own words, before anything runs, and every other method runs
     import sim.workflows.compare as compare
 
-    real_run, refused = compare.run, method
+    real_solver_for, refused = compare.solver_for, method
 
-    def refusing_run(scenario, method=None, **options):
+    def refusing_solver_for(scenario, method=None, **options):
         if method == refused:
             raise ScenarioError(f"{method} refuses this scenario (injected)")
-        return real_run(scenario, method=method, **options)
+        return real_solver_for(scenario, method, **options)
 
-    monkeypatch.setattr(compare, "run", refusing_run)
+    monkeypatch.setattr(compare, "solver_for", refusing_solver_for)
     s = load_scenario(make_scenario(COMPARE, t_max=100.0, samples=11))  # a shorter run
-    if method == "fock":
-        summary = json.loads((compare_to_folder(s, tmp_path / "out") / "summary.json").read_text())
-        assert summary["skipped"] == {"fock": "does not accept this scenario: fock refuses this "
-                                              "scenario (injected)"}
-        assert summary["methods"] == [m for m in COMPARED if m != "fock"]
-    else:
-        with pytest.raises(ScenarioError, match="injected"):
-            compare_to_folder(s, tmp_path / "out")
-        assert not (tmp_path / "out").exists()
+    compare_to_folder(s, tmp_path / "out")
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
+    assert summary["skipped"] == {method: "does not accept this scenario: "
+                                          f"{method} refuses this scenario (injected)"}
+    assert summary["methods"] == [m for m in COMPARED if m != method]
+    assert summary["failed"] == {}
+
+
+@pytest.mark.parametrize("method", COMPARED)
+def test_a_method_failing_while_running_is_that_methods_failure(make_scenario, tmp_path,
+                                                                monkeypatch, method):
+    # an integrator-style error injected into one method's run: reported under "failed" with
+    # its type and message; the other methods' curves are still written
+    import sim.workflows.compare as compare
+
+    real_result_of, failing = compare.result_of, method
+
+    def failing_result_of(solver):
+        if solver.name == failing:
+            raise RuntimeError("integrator gave up (injected)")
+        return real_result_of(solver)
+
+    monkeypatch.setattr(compare, "result_of", failing_result_of)
+    s = load_scenario(make_scenario(COMPARE, t_max=100.0, samples=11))
+    comparison = compare_to_folder(s, tmp_path / "out")
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
+    assert summary["failed"] == {method: "failed: RuntimeError: integrator gave up (injected)"}
+    assert summary["methods"] == [m for m in COMPARED if m != method] == list(comparison.results)
+    header, _ = read_csv(tmp_path / "out" / "compare.csv")
+    assert header == ["t", *summary["methods"]]
+
+
+def test_a_method_over_the_time_budget_is_skipped_before_it_runs(make_scenario, tmp_path,
+                                                                 monkeypatch):
+    # every estimate is given a known wall time: the methods above the budget are skipped with
+    # their estimate and the key to lower, and never run
+    import dataclasses
+
+    import sim.workflows.compare as compare
+
+    seconds = {"perturbative": 0.1, "markov": 50.0, "exact": 1.0, "fock": 5000.0}
+    real_plan = compare.solver_for
+    ran = []
+
+    def sized_solver_for(scenario, method=None, **options):
+        solver = real_plan(scenario, method, **options)
+        estimate = dataclasses.replace(solver.estimate(), seconds=seconds[method])
+        solver.estimate = lambda: estimate
+        real_run = solver.run
+        solver.run = lambda: (ran.append(method), real_run())[1]
+        return solver
+
+    monkeypatch.setattr(compare, "solver_for", sized_solver_for)
+    s = load_scenario(make_scenario(COMPARE, t_max=100.0, samples=11))
+    compare_to_folder(s, tmp_path / "out", budget=10.0)
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
+    assert set(summary["skipped"]) == {"markov", "fock"} and not {"markov", "fock"} & set(ran)
+    assert summary["skipped"]["fock"].startswith("estimated 5e+03 s, over the budget of 10 s")
+    assert "raise --budget" in summary["skipped"]["markov"]
+    assert summary["estimates"]["fock"]["seconds"] == 5000.0
+    assert summary["methods"] == ran == ["perturbative", "exact"]
+
+
+def test_compare_fails_only_when_no_method_gives_a_result(make_scenario, tmp_path, monkeypatch):
+    import sim.workflows.compare as compare
+
+    def refusing(scenario, method=None, **options):
+        raise ScenarioError(f"{method} refuses (injected)")
+
+    monkeypatch.setattr(compare, "solver_for", refusing)
+    s = load_scenario(make_scenario(COMPARE, t_max=100.0, samples=11))
+    with pytest.raises(ScenarioError, match="exact refuses") as info:
+        compare_to_folder(s, tmp_path / "out")
+    assert len(info.value.problems) == len(COMPARED)
+    assert not (tmp_path / "out").exists()
 
 
 def test_compare_refuses_a_full_folder_without_force(folder, make_scenario):
