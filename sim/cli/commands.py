@@ -24,7 +24,7 @@ import sys
 import warnings
 from pathlib import Path
 
-from ..config.registry import COMPARE_BUDGET_SECONDS
+from ..config.registry import CHECK_TOLERANCE, COMPARE_BUDGET_SECONDS
 from ..errors import OutputExists, ScenarioError, UsageError
 
 EXIT_BAD_INPUT = 2
@@ -100,8 +100,18 @@ def cmd_rates(args) -> int:
     return 0
 
 
+def _fit_words(summary: dict) -> str:
+    """The fitted rate and its verdict, or why no rate is given."""
+    unit = summary.get("units", {}).get("rate_fitted", "")
+    rate, fit = summary.get("rate_fitted"), summary.get("fit") or {}
+    if rate is None or (isinstance(rate, float) and math.isnan(rate)):
+        return f"no fitted rate ({fit.get('reason') or 'no exponential part to fit'})"
+    verdict = fit.get("verdict")
+    return f"fitted rate {rate:.6g}{' ' + unit if unit else ''}" + (f" ({verdict})" if verdict else "")
+
+
 def print_run_summary(summary: dict, out: Path) -> None:
-    """Print the report of a finished run: rates, final population, convergence, warnings.
+    """Print the report of a finished run: rates, fit verdict, recoil, convergence, warnings.
 
     Parameters
     ----------
@@ -114,12 +124,21 @@ def print_run_summary(summary: dict, out: Path) -> None:
     rate_unit = summary.get("units", {}).get("rate_golden_rule", "")
     rate_unit = f" {rate_unit}" if rate_unit else ""
     print(f"{summary['title']}: method {summary['method']}, simulated")
-    print(f"  golden-rule rate {summary['rate_golden_rule']:.6g}{rate_unit}, fitted rate "
-          f"{summary['rate_fitted']:.6g}{rate_unit}, final excited population "
-          f"{summary['final_excited']:.6g}")
+    print(f"  golden-rule rate {summary['rate_golden_rule']:.6g}{rate_unit}; {_fit_words(summary)}")
+    line = f"  final excited population {summary['final_excited']:.6g}"
+    if summary.get("trapped_population") is not None:
+        line += f"; trapped (late-time plateau) {summary['trapped_population']:.4g}"
+    print(line)
+    velocity = summary.get("recoil_velocity_m_s")
+    if velocity is not None and math.isfinite(velocity):
+        print(f"  recoil velocity of one emission at rest {velocity:.4g} m/s")
     if "convergence" in summary:
-        print(f"  convergence: largest change of P_e on refinement "
-              f"{summary['convergence']['max_change_excited']:.3g}")
+        c = summary["convergence"]
+        rate = c.get("relative_change_rate")
+        print(f"  convergence check: largest change of P_e on refinement "
+              f"{c['max_change_excited']:.3g}, relative change of the fitted rate "
+              f"{'-' if rate is None else format(rate, '.3g')}: {c.get('verdict', '')} "
+              f"(tolerance {c.get('tolerance', float('nan')):.3g})")
     for w in summary.get("warnings", []):
         print(f"  warning: {w}")
     print(f"  files in {out}/")
@@ -168,7 +187,7 @@ def cmd_run(args) -> int:
         raise UsageError("run: --out DIR is required (or --dry-run)")
     out = Path(args.out)
     summary = run_to_folder(scenario, out, check=args.check, force=args.force,
-                            progress=_progress(args))
+                            progress=_progress(args), check_tolerance=args.check_tolerance)
     print_run_summary(summary, out)
     return 0
 
@@ -388,15 +407,25 @@ def _progress(args) -> bool:
     return sys.stderr.isatty() and not getattr(args, "quiet", False)
 
 
-def _budget_option(text: str) -> float:
-    """--budget SECONDS: a positive finite number."""
+def _positive_option(text: str, what: str) -> float:
+    """A positive finite number, or an argparse error naming what it should be."""
     try:
         value = float(text)
     except ValueError:
         value = math.nan
     if not (math.isfinite(value) and value > 0):
-        raise argparse.ArgumentTypeError(f"expected a positive number of seconds, got {text!r}")
+        raise argparse.ArgumentTypeError(f"expected a positive {what}, got {text!r}")
     return value
+
+
+def _tolerance_option(text: str) -> float:
+    """--check-tolerance TOL: a positive finite number."""
+    return _positive_option(text, "tolerance, e.g. 1e-3")
+
+
+def _budget_option(text: str) -> float:
+    """--budget SECONDS: a positive finite number."""
+    return _positive_option(text, "number of seconds")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -423,6 +452,10 @@ def build_parser() -> argparse.ArgumentParser:
     p = _command(sub, "run", cmd_run, "time evolution with the scenario's run.method")
     p.add_argument("--out", help="output folder")
     p.add_argument("--check", action="store_true", help="rerun refined and report convergence")
+    p.add_argument("--check-tolerance", type=_tolerance_option, default=CHECK_TOLERANCE,
+                   metavar="TOL",
+                   help="largest change of P_e and relative change of the rate that --check "
+                        f"calls converged (default {CHECK_TOLERANCE:g})")
     p.add_argument("--dry-run", action="store_true", help="print the memory and work estimate only")
     _force_option(p)
 

@@ -50,6 +50,9 @@ METHODS: dict[str, str] = {name: entry.target for name, entry in METHOD_ENTRIES.
 METHOD_NAMES: tuple[str, ...] = tuple(METHOD_ENTRIES)
 #: `recoilsim compare --budget` default: the largest estimated wall time of one method (seconds)
 COMPARE_BUDGET_SECONDS = 600.0
+#: `recoilsim run --check --check-tolerance` default: the largest change of P_e and relative
+#: change of the fitted rate on refinement called converged (dimensionless)
+CHECK_TOLERANCE = 1e-3
 MODEL_NAMES: tuple[str, ...] = tuple(MODEL_ENTRIES)
 
 

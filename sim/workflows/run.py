@@ -6,6 +6,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..config.registry import CHECK_TOLERANCE
 from ..io.writers import output_folder, refuse_existing, write_json, write_tables
 from ..plotting import result_figures
 from ..result import Result, result_of
@@ -49,8 +50,22 @@ def write_result(result: Result, out: str | Path, *, force: bool = False, figure
     return summary
 
 
-def convergence_report(result: Result, refined_result: Result) -> dict:
-    """Largest change of the excited population when the discretisation is refined.
+
+
+def _relative_change(coarse, fine) -> float | None:
+    """|fine - coarse| / |fine|, None when either rate is missing (no valid fit) or fine is 0."""
+    if coarse is None or fine is None or not (np.isfinite(coarse) and np.isfinite(fine)) \
+            or fine == 0:
+        return None
+    return float(abs(fine - coarse) / abs(fine))
+
+
+def convergence_report(result: Result, refined_result: Result,
+                       tolerance: float = CHECK_TOLERANCE) -> dict:
+    """Change of the excited population and of the fitted rate when the discretisation is refined.
+
+    The verdict is "converged" when max_t |P_e'(t) - P_e(t)| <= tolerance and, where both runs
+    have a fitted rate, |Gamma' - Gamma| / |Gamma'| <= tolerance; "not converged" otherwise.
 
     Parameters
     ----------
@@ -58,20 +73,30 @@ def convergence_report(result: Result, refined_result: Result) -> dict:
         The run as configured.
     refined_result : Result
         The same scenario with every discretisation parameter refined (`Solver.refined`).
+    tolerance : float
+        Largest change allowed for "converged" (dimensionless).
 
     Returns
     -------
     dict
         "max_change_excited": largest absolute change of the excited population
         (dimensionless) at the sample times of `result`, the refined curve interpolated
-        linearly; "refined": the refined run's stats.
+        linearly; "relative_change_rate": relative change of the fitted rate (None when either
+        run has no valid fit); "tolerance"; "verdict"; "refined": the refined run's stats.
     """
     fine = np.interp(result.times, refined_result.times, refined_result.excited)
-    return {"max_change_excited": float(np.max(np.abs(fine - result.excited))),
+    change = float(np.max(np.abs(fine - result.excited)))
+    rate = _relative_change(result.summary.get("rate_fitted"),
+                            refined_result.summary.get("rate_fitted"))
+    converged = change <= tolerance and (rate is None or rate <= tolerance)
+    return {"max_change_excited": change, "relative_change_rate": rate,
+            "tolerance": float(tolerance),
+            "verdict": "converged" if converged else "not converged",
             "refined": refined_result.summary.get("stats", {})}
 
 
-def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bool) -> dict:
+def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bool,
+                  check_tolerance: float = CHECK_TOLERANCE) -> dict:
     """Run the scenario's method, optionally the convergence check, and write the folder.
 
     Parameters
@@ -86,6 +111,8 @@ def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bo
         Replace a non-empty `out` that recoilsim wrote (`sim.io.writers.refuse_existing`).
     progress : bool
         Show a progress bar on stderr during long runs.
+    check_tolerance : float
+        The convergence verdict's tolerance (`convergence_report`).
 
     Returns
     -------
@@ -108,10 +135,11 @@ def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bo
     if check:
         refined = solver.refined()
         if refined is None:
-            extra["convergence"] = {"max_change_excited": 0.0,
+            extra["convergence"] = {"max_change_excited": 0.0, "relative_change_rate": 0.0,
+                                    "tolerance": float(check_tolerance), "verdict": "converged",
                                     "note": f"method {solver.name!r} has no discretisation to refine"}
         else:
-            extra["convergence"] = convergence_report(result, result_of(refined))
+            extra["convergence"] = convergence_report(result, result_of(refined), check_tolerance)
     return write_result(result, out, force=force, extra_summary=extra)
 
 
