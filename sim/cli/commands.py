@@ -333,9 +333,13 @@ def cmd_sweep(args) -> int:
     axes = [parse_vary(text) for text in args.vary]
     out = Path(args.out)
     counts = run_sweep(scenario, axes, out, workers=args.workers, scheduler=args.scheduler,
-                       progress=_progress(args), force=args.force)
+                       progress=_progress(args), force=args.force,
+                       mode="rates-only" if args.rates_only else "run",
+                       figures=not args.no_figures)
     print(f"sweep of {counts['points']} points (simulated): {counts['ok']} ok, "
           f"{counts['failed']} failed, {counts['skipped']} finished earlier -> {out / TABLE_FILE}")
+    for key, n in counts["dropped"].items():
+        print(f"  {key} does not apply at {n} point{'s' if n != 1 else ''} and was dropped there")
     if counts["lost"]:
         print(f"recoilsim: {counts['lost']} points lost with their worker "
               f"({counts['lost_errors'][0]}); rerun the same command to resume", file=sys.stderr)
@@ -472,6 +476,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", required=True)
     p.add_argument("--workers", type=int, default=None, help="local worker processes")
     p.add_argument("--scheduler", default=None, help="address of an existing Dask scheduler")
+    p.add_argument("--rates-only", action="store_true",
+                   help="golden-rule rates only: no time evolution, no per-point figures")
+    p.add_argument("--no-figures", action="store_true", help="no per-point figures")
     _force_option(p, "a sweep folder recoilsim wrote for a different sweep")
 
     p = _command(sub, "new", cmd_new, "write a commented template scenario NAME.toml", scenario=False)

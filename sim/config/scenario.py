@@ -204,26 +204,47 @@ def _validate_tables(raw: Mapping[str, Any]) -> tuple[dict[str, dict[str, Any]],
     return tables, problems
 
 
+def inapplicable_keys(tables: Mapping[str, Mapping[str, Any]]) -> dict[str, str]:
+    """Keys that are valid alone but do not apply given the others, each with why.
+
+    Parameters
+    ----------
+    tables : mapping
+        Table name -> key -> value (a scenario as written, or its typed tables).
+
+    Returns
+    -------
+    dict
+        Dotted key -> one problem line naming the key, its value and what it needs:
+        coupling.matching without detector.model = "one-particle", run.trajectories > 0
+        without run.method = "markov", run.seed without trajectories.
+    """
+    detector, coupling, run = (tables.get(t, {}) for t in ("detector", "coupling", "run"))
+    model, trajectories = detector.get("model"), run.get("trajectories", 0)
+    out = {}
+    if "matching" in coupling and model != "one-particle":
+        out["coupling.matching"] = (f'coupling.matching = "{coupling["matching"]}": applies only '
+                                    f'to detector.model = "one-particle" (model is "{model}"); '
+                                    "remove it")
+    if isinstance(trajectories, int) and trajectories > 0 and run.get("method", "exact") != "markov":
+        out["run.trajectories"] = (f"run.trajectories = {trajectories}: quantum trajectories "
+                                   "unravel the master equation; allowed only with run.method = "
+                                   '"markov"')
+    if "seed" in run and trajectories == 0:
+        out["run.seed"] = (f"run.seed = {run['seed']}: seeds the quantum trajectories; set "
+                           "run.trajectories > 0 or remove it")
+    return out
+
+
 def _combination_problems(t: dict[str, dict[str, Any]]) -> list[str]:
     """Keys that are valid alone but make no sense together."""
-    problems = []
-    model = t["detector"].get("model")
+    problems = list(inapplicable_keys(t).values())
     coupling = t["coupling"]
-    if "matching" in coupling and model != "one-particle":
-        problems.append(f'coupling.matching = "{coupling["matching"]}": applies only to '
-                        f'detector.model = "one-particle" (model is "{model}"); remove it')
     if "strength" in coupling and "lifetime" in coupling:
         problems.append("coupling.lifetime: give either coupling.strength or coupling.lifetime, "
                         "not both")
     if "strength" not in coupling and "lifetime" not in coupling:
         problems.append("coupling.strength: missing; allowed: >= 0 (or give coupling.lifetime)")
-    run = t["run"]
-    if run.get("trajectories", 0) > 0 and run.get("method", "exact") != "markov":
-        problems.append(f"run.trajectories = {run['trajectories']}: quantum trajectories unravel "
-                        f'the master equation; allowed only with run.method = "markov"')
-    if "seed" in run and run.get("trajectories", 0) == 0:
-        problems.append(f"run.seed = {run['seed']}: seeds the quantum trajectories; set "
-                        "run.trajectories > 0 or remove it")
     return problems
 
 

@@ -14,10 +14,18 @@ Layout of DIR (one sweep per folder):
   carrying ``"sweep_point"``; a point whose run raised holds only ``failed.json`` (written the
   same way) with its one-line error;
 * ``sweep.csv``: one row per finished point (a column per varied key named by its dotted key,
-  then rate_golden_rule, rate_fitted, status = "ok" or "failed: <error>"), rebuilt atomically
-  from the point records after each point.  Rates are those of summary.json: natural units, or
-  the output units of a scenario with units (listed in each point's summary.json "units";
-  varying run.t_max across time units, "100 ns,1 us", changes the rate unit per row).
+  then rate_golden_rule, rate_fitted, final_excited, gamma_over_omega, lamb_shift, warnings
+  (count), dropped (keys that do not apply at the point, e.g. coupling.matching for a model
+  other than one-particle: dropped there, not fatal), status = "ok" or "failed: <error>"),
+  rebuilt atomically from the point records after each point.  Rates are those of
+  summary.json: natural units, or the output units of a scenario with units (sweep.json
+  "units" lists every column's; each point's summary.json its own, since varying run.t_max
+  across time units, "100 ns,1 us", changes the rate unit per row);
+* ``sweep.png``: a chosen column against the first varied key, one line per value of the
+  second.
+
+With ``--rates-only`` a point computes only the golden-rule rates (no time evolution, no
+figures; its folder holds summary.json alone); ``--no-figures`` skips each point's figures.
 
 Resuming: a rerun of the same command skips every point with a summary.json and runs the rest
 (failed points are retried), so an interrupted sweep loses no finished point and a killed one
@@ -49,20 +57,28 @@ from typing import Any
 import numpy as np
 from tqdm import tqdm
 
+from ..config.scenario import inapplicable_keys, set_keys
 from ..config.schema import SCHEMA, Scenario
 from ..config.units import QUANTITY_TEXT
 from ..errors import ScenarioError, UsageError
 from ..io.atomic import atomic_write_text, remove_stale_stages
 from ..io.writers import (csv_text, json_safe, output_folder, refuse_existing,
                           write_json, write_marker)
-from ..physics.checks import with_keys
+from ..physics.checks import load_scenario
+from ..physics.golden_rule import packet_rate
 from ..result import run
+from .rates import rates_report
 from .run import write_result
 
 #: refuse sweeps larger than this many points (a typo in n, most likely)
 MAX_POINTS = 100_000
-#: columns of sweep.csv after the varied keys
-RESULT_COLUMNS = ("rate_golden_rule", "rate_fitted", "status")
+#: columns of sweep.csv after the varied keys: numbers taken from each point's summary.json, then
+#: the warning count, the keys dropped at the point (";"-separated) and the status
+SUMMARY_COLUMNS = ("rate_golden_rule", "rate_fitted", "final_excited", "gamma_over_omega",
+                   "lamb_shift")
+RESULT_COLUMNS = (*SUMMARY_COLUMNS, "warnings", "dropped", "status")
+#: what a point computes: the full run of its method, or only the golden-rule rates
+MODES = ("run", "rates-only")
 DEFINITION_FILE = "sweep.json"
 TABLE_FILE = "sweep.csv"
 FAILED_FILE = "failed.json"
@@ -96,6 +112,8 @@ class PointTask:
     index: int
     values: dict
     folder: str
+    mode: str = "run"
+    figures: bool = True
 
 
 # ---------------------------------------------------------------------------------------------
@@ -248,6 +266,40 @@ def point_label(values: dict) -> str:
     return ", ".join(f"{k}={v}" for k, v in values.items())
 
 
+def point_scenario(scenario: Scenario, values: dict) -> tuple[Scenario, dict]:
+    """The scenario of one point, without the keys that do not apply there.
+
+    A key valid alone that the point's other keys make meaningless (`inapplicable_keys`, e.g.
+    coupling.matching at a point whose detector.model is not "one-particle") is dropped at that
+    point instead of failing it.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        The sweep's base scenario.
+    values : dict
+        Dotted key -> value of the point.
+
+    Returns
+    -------
+    scenario : Scenario
+        The point's scenario, loaded and validated (`sim.physics.checks.load_scenario`).
+    dropped : dict
+        Dotted key -> why it was dropped (empty when none was).
+
+    Raises
+    ------
+    ScenarioError
+        If a key is not a scenario key, or the point's scenario is not valid.
+    """
+    raw = set_keys(scenario.source, values)
+    dropped = inapplicable_keys(raw)
+    for dotted in dropped:
+        table, key = dotted.split(".")
+        del raw[table][key]
+    return load_scenario(raw), dropped
+
+
 def invalid_points(scenario: Scenario, points: list[dict]) -> list[str]:
     """One problem line per invalid key value (checked before anything runs).
 
@@ -267,7 +319,7 @@ def invalid_points(scenario: Scenario, points: list[dict]) -> list[str]:
     problems = []
     for values in points:
         try:
-            with_keys(scenario, values)
+            point_scenario(scenario, values)
         except ScenarioError as exc:
             problems += [f"point {point_label(values)}: {p}" for p in exc.problems]
     if len(problems) > LISTED_PROBLEMS:
@@ -315,15 +367,44 @@ def one_line(exc: BaseException) -> str:
     return f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__
 
 
+def rates_summary(scenario: Scenario) -> dict:
+    """A rates-only point's summary: the golden-rule rates, no time evolution.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        The point's scenario.
+
+    Returns
+    -------
+    dict
+        "simulated", "title", "method" ("golden rule only"), rate_golden_rule and rest_rate
+        (inverse time: output units for a scenario with units, listed under "units"),
+        gamma_over_omega (packet-averaged Gamma / Omega, dimensionless), the
+        template function {"p", "rate"} (`rates_report`) and "warnings" (the scenario's notes).
+    """
+    report = rates_report(scenario, None)
+    summary = {"simulated": True, "title": scenario.title, "method": "golden rule only",
+               "rate_golden_rule": report["rate"], "rest_rate": report["rest_rate"],
+               "gamma_over_omega": packet_rate(scenario) / scenario.detector.gap,
+               "template": report["template"], "warnings": list(scenario.notes)}
+    if "units" in report:
+        summary["units"] = {"rate_golden_rule": report["units"]["rate"],
+                            "rest_rate": report["units"]["rest_rate"], "p": report["units"]["p"]}
+    return summary
+
+
 def run_point(task: PointTask) -> int:
     """Run one point and write its record (run folder, or failed.json); returns its index.
 
     Any exception of the run is recorded, not raised: one failed point never stops a sweep.
+    Mode "run" writes the method's full run folder (figures unless `task.figures` is False);
+    mode "rates-only" writes only summary.json with the golden-rule rates (`rates_summary`).
 
     Parameters
     ----------
     task : PointTask
-        The point: base scenario, index, dotted key -> value, and its folder.
+        The point: base scenario, index, dotted key -> value, its folder, mode and figures.
 
     Returns
     -------
@@ -333,13 +414,29 @@ def run_point(task: PointTask) -> int:
     folder = Path(task.folder)
     record = {"index": task.index, "values": task.values}
     try:
-        result = run(with_keys(task.scenario, task.values))
-        write_result(result, folder, force=True, extra_summary={"sweep_point": record})
+        scenario, dropped = point_scenario(task.scenario, task.values)
+        record["dropped"] = dropped
+        gamma = {"gamma_over_omega": None}
+        if task.mode == "rates-only":
+            summary = rates_summary(scenario)
+            with output_folder(folder, force=True, kind="sweep-point") as stage:
+                write_json(stage / "summary.json", {**summary, "sweep_point": record})
+        else:
+            result = run(scenario)
+            gamma["gamma_over_omega"] = result.summary["rate_golden_rule"] / scenario.detector.gap
+            write_result(result, folder, force=True, figures=task.figures,
+                         extra_summary={"sweep_point": record, **gamma})
     except Exception as exc:  # noqa: BLE001 - recorded in failed.json and sweep.csv
         failure = {"sweep_point": record, "status": f"failed: {one_line(exc)}", "simulated": True}
         with output_folder(folder, force=True, kind="sweep-point") as stage:
             write_json(stage / FAILED_FILE, failure)
     return task.index
+
+
+def _number(data: dict, key: str) -> float:
+    """A summary number, nan where it is absent or null."""
+    value = data.get(key)
+    return math.nan if value is None else value
 
 
 def point_row(folder: Path, values: dict) -> dict | None:
@@ -355,21 +452,26 @@ def point_row(folder: Path, values: dict) -> dict | None:
     Returns
     -------
     dict or None
-        `values` plus "rate_golden_rule" and "rate_fitted" (inverse time, as in the point's
-        summary.json: natural units, or output units for a scenario with units; nan when
-        absent or failed) and "status" ("ok" or "failed: <error>"); None when the folder holds
+        `values` plus the `SUMMARY_COLUMNS` as in the point's summary.json (rates and the
+        Lamb shift in inverse time: natural units, or output units for a scenario with units;
+        final_excited and gamma_over_omega = Gamma / Omega dimensionless; nan when absent,
+        null or failed), "warnings" (count), "dropped" (the keys dropped at the point,
+        ";"-separated) and "status" ("ok" or "failed: <error>"); None when the folder holds
         neither summary.json nor failed.json.
     """
     summary, failed = folder / "summary.json", folder / FAILED_FILE
     if summary.is_file():
         data = json.loads(summary.read_text())
-        rates = {k: (math.nan if data.get(k) is None else data[k]) for k in RESULT_COLUMNS[:2]}
-        return {**values, **rates, "status": "ok"}
-    if failed.is_file():
+        status = "ok"
+    elif failed.is_file():
         data = json.loads(failed.read_text())
-        return {**values, "rate_golden_rule": math.nan, "rate_fitted": math.nan,
-                "status": data["status"]}
-    return None
+        status = data["status"]
+    else:
+        return None
+    dropped = data.get("sweep_point", {}).get("dropped", {})
+    return {**values, **{k: _number(data, k) for k in SUMMARY_COLUMNS},
+            "warnings": len(data.get("warnings", [])), "dropped": ";".join(dropped),
+            "status": status}
 
 
 # ---------------------------------------------------------------------------------------------
@@ -377,8 +479,44 @@ def point_row(folder: Path, values: dict) -> dict | None:
 # ---------------------------------------------------------------------------------------------
 
 
-def definition(scenario: Scenario, axes: list[Axis]) -> dict:
-    """What identifies a sweep: the scenario as read and the varied keys with their values.
+def column_units(scenario: Scenario, axes: list[Axis]) -> dict:
+    """The unit of every sweep.csv column, for sweep.json.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        The base scenario (its output units; a point that varies a unit key may differ, its
+        own summary.json lists its units).
+    axes : list of Axis
+        The varied keys.
+
+    Returns
+    -------
+    dict
+        Column -> unit text: a varied key's values are as given ("as given (unit)" for unit
+        strings; natural units for bare numbers in a natural-unit scenario; none for names
+        and flags); rates
+        and the Lamb shift in the output rate unit or natural units; the rest dimensionless,
+        a count or text.
+    """
+    natural = "natural units (hbar = c = 1)"
+    units = scenario.units
+    rate = units.column_unit("rate_fitted") if units else natural
+    out = {}
+    for axis in axes:
+        quantities = {v.split(maxsplit=1)[1] for v in axis.values
+                      if isinstance(v, str) and QUANTITY_TEXT.match(v) and len(v.split()) > 1}
+        numbers = all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in axis.values)
+        out[axis.key] = (f"as given ({', '.join(sorted(quantities))})" if quantities
+                         else (natural if units is None else "as a bare number in the scenario "
+                               "file (see its notes)") if numbers else "none (a name or flag)")
+    return {**out, "rate_golden_rule": rate, "rate_fitted": rate, "lamb_shift": rate,
+            "final_excited": "dimensionless", "gamma_over_omega": "dimensionless",
+            "warnings": "count", "dropped": "keys dropped at the point", "status": "text"}
+
+
+def definition(scenario: Scenario, axes: list[Axis], mode: str = "run") -> dict:
+    """What identifies a sweep: the scenario as read, the varied keys and values, the mode.
 
     Parameters
     ----------
@@ -386,15 +524,18 @@ def definition(scenario: Scenario, axes: list[Axis]) -> dict:
         The base scenario (its `source`, as read, is recorded).
     axes : list of Axis
         The varied keys and their values.
+    mode : str
+        "run" (every point's full run) or "rates-only" (golden-rule rates only).
 
     Returns
     -------
     dict
         The contents of sweep.json, JSON-safe: {"simulated": True, "scenario", "vary":
-        [[key, values], ...]}.
+        [[key, values], ...], "mode", "units" (column -> unit, `column_units`)}.
     """
     return json_safe({"simulated": True, "scenario": dict(scenario.source),
-                      "vary": [[a.key, list(a.values)] for a in axes]})
+                      "vary": [[a.key, list(a.values)] for a in axes], "mode": mode,
+                      "units": column_units(scenario, axes)})
 
 
 def _replace_owned(out: Path, shown: str) -> None:
@@ -635,8 +776,8 @@ def finished_indices(tasks: list[PointTask], workers: int, scheduler: str | None
 
 
 def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int | None = None,
-              scheduler: str | None = None, progress: bool = False,
-              force: bool = False) -> dict[str, Any]:
+              scheduler: str | None = None, progress: bool = False, force: bool = False,
+              mode: str = "run", figures: bool = True) -> dict[str, Any]:
     """Run (or resume) a sweep into `out`; returns counts of its points.
 
     Parameters
@@ -655,13 +796,18 @@ def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int |
         Show a progress bar on stderr.
     force : bool
         Replace a folder recoilsim wrote that holds a different sweep (`sweep_folder`).
+    mode : str
+        "run": each point's full run folder; "rates-only": only its golden-rule rates (no
+        time evolution, no figures; in this process unless `workers` or `scheduler` is given).
+    figures : bool
+        Draw each point's figures (mode "run").
 
     Returns
     -------
     dict
         Counts {"points", "ok", "failed", "lost", "skipped"} (skipped: finished before this
-        call; lost: with their worker, rerun to resume) and "lost_errors" (one line per lost
-        point).
+        call; lost: with their worker, rerun to resume), "lost_errors" (one line per lost
+        point) and "dropped" (key -> number of points where it did not apply and was dropped).
 
     Raises
     ------
@@ -671,18 +817,21 @@ def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int |
         If a key repeats, there are too many points, `workers` < 1, `out` cannot hold this
         sweep (`sweep_folder`) or the scheduler cannot be reached.
     """
+    if mode not in MODES:
+        raise UsageError(f"sweep mode {mode!r}: allowed: {', '.join(MODES)}")
     points = sweep_points(axes)
     problems = invalid_points(scenario, points)
     if problems:
         raise ScenarioError(problems)
-    n_workers = 1 if scheduler else local_workers(workers)
+    n_workers = 1 if scheduler or (mode == "rates-only" and workers is None) \
+        else local_workers(workers)
     keys = [axis.key for axis in axes]
-    with sweep_folder(out, definition(scenario, axes), force):
+    with sweep_folder(out, definition(scenario, axes, mode), force):
         folders = [out / folder_name(i, len(points)) for i in range(len(points))]
         rows = {i: row for i, (f, v) in enumerate(zip(folders, points))
                 if (row := point_row(f, v)) is not None}
         done = {i for i, row in rows.items() if row["status"] == "ok"}
-        tasks = [PointTask(scenario, i, points[i], str(folders[i]))
+        tasks = [PointTask(scenario, i, points[i], str(folders[i]), mode, figures)
                  for i in range(len(points)) if i not in done]
         write_table(out, keys, rows)
         lost = []
@@ -704,5 +853,9 @@ def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int |
             write_table(out, keys, rows)
             raise
     failed = sum(1 for row in rows.values() if row["status"] != "ok")
+    dropped: dict[str, int] = {}
+    for row in rows.values():
+        for key in filter(None, row["dropped"].split(";")):
+            dropped[key] = dropped.get(key, 0) + 1
     return {"points": len(points), "ok": len(rows) - failed, "failed": failed,
-            "lost": len(lost), "lost_errors": lost, "skipped": len(done)}
+            "lost": len(lost), "lost_errors": lost, "skipped": len(done), "dropped": dropped}

@@ -70,7 +70,8 @@ def test_product_of_two_varies(make_scenario, write_scenario, tmp_path, capsys):
     assert code == 0
     rows = read_table(out)
     assert list(rows[0]) == ["packet.width", "detector.model", "rate_golden_rule",
-                             "rate_fitted", "status"]
+                             "rate_fitted", "final_excited", "gamma_over_omega", "lamb_shift",
+                             "warnings", "dropped", "status"]
     assert [(r["packet.width"], r["detector.model"]) for r in rows] == [
         ("5.0", "galilean"), ("5.0", "newton-wigner"), ("40.0", "galilean"),
         ("40.0", "newton-wigner")]
