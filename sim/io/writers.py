@@ -368,7 +368,8 @@ def unit_entries(units: UnitSystem, result: Result) -> dict:
     entries: dict[str, Any] = {}
     for key in SUMMARY_KEYS:
         if key in result.summary:
-            entries[key] = float(units.to_output(key, result.summary[key]))
+            value = result.summary[key]  # None: withheld with its reason (e.g. rate_fitted)
+            entries[key] = None if value is None else float(units.to_output(key, value))
             names[key] = units.column_unit(key)
     names["recoil_velocity_m_s"] = "m/s"
     names["natural_energy_unit_eV"] = "eV"
