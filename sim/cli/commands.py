@@ -24,7 +24,8 @@ import sys
 import warnings
 from pathlib import Path
 
-from ..config.registry import CHECK_TOLERANCE, COMPARE_BUDGET_SECONDS
+from ..config.registry import (CHECK_TOLERANCE, COMPARE_BUDGET_SECONDS, FIGURE_DPI,
+                               FIGURE_DPI_RANGE, FIGURE_FORMATS)
 from ..errors import OutputExists, ScenarioError, UsageError
 
 EXIT_BAD_INPUT = 2
@@ -82,8 +83,7 @@ def cmd_rates(args) -> int:
 
     scenario = _load(args.scenario)
     report = rates_report(scenario, _momenta_option(args.at) if args.at else None)
-    if args.plot:
-        write_rates_figure(scenario, args.plot)
+    figure = write_rates_figure(scenario, args.plot, args.fmt, args.dpi) if args.plot else None
     if args.json:
         print(json.dumps(report))
         return 0
@@ -95,8 +95,8 @@ def cmd_rates(args) -> int:
     print(f"{'p ' + units['p']:>16}  {'Gamma(p) ' + units['rate']:>16}")
     for p, r in zip(report["template"]["p"], report["template"]["rate"]):
         print(f"{p:16.8g}  {r:16.10g}")
-    if args.plot:
-        print(f"figure: {args.plot}")
+    if figure:
+        print(f"figure: {figure}")
     return 0
 
 
@@ -187,7 +187,8 @@ def cmd_run(args) -> int:
         raise UsageError("run: --out DIR is required (or --dry-run)")
     out = Path(args.out)
     summary = run_to_folder(scenario, out, check=args.check, force=args.force,
-                            progress=_progress(args), check_tolerance=args.check_tolerance)
+                            progress=_progress(args), check_tolerance=args.check_tolerance,
+                            fmt=args.fmt, dpi=args.dpi)
     print_run_summary(summary, out)
     return 0
 
@@ -213,14 +214,17 @@ def cmd_demo(args) -> int:
     from ..workflows.demo import run_demo
 
     out = Path(args.out)
-    report = run_demo(out, force=args.force, progress=_progress(args), quiet=not _progress(args))
+    report = run_demo(out, force=args.force, progress=_progress(args), quiet=not _progress(args),
+                      fmt=args.fmt, dpi=args.dpi)
     summary = report["exact"]
     print(f"{report['title']} (simulated)")
-    print(f"  golden-rule rate {report['rate']:.6g}; exact fitted rate {summary['rate_fitted']:.6g}")
+    print(f"  golden-rule rate {report['rate']:.6g}; exact run: {_fit_words(summary)}")
     for w in summary.get("warnings", []):
         print(f"  warning: {w}")
-    print(f"  figures: {out}/rates.png, {out}/exact/decay.png, {out}/exact/momentum.png, "
-          f"{out}/exact/variance.png, {out}/compare/compare.png")
+    f = args.fmt
+    print(f"  figures: {out}/rates.{f}, {out}/exact/decay.{f}, {out}/exact/momentum.{f}, "
+          f"{out}/exact/recoil_map.{f}, {out}/exact/variance.{f}, {out}/compare/compare.{f}, "
+          f"{out}/sweep/sweep.{f}")
     print(f"  data: {out}/exact/*.csv, {out}/compare/compare.csv, {out}/sweep/sweep.csv")
     return 0
 
@@ -296,7 +300,7 @@ def cmd_compare(args) -> int:
     out = Path(args.out)
     comparison = compare_to_folder(_load(args.scenario), out, force=args.force,
                                    budget=args.budget, progress=_progress(args),
-                                   quiet=not _progress(args))
+                                   quiet=not _progress(args), fmt=args.fmt, dpi=args.dpi)
     print_comparison(comparison.summary, out)
     return 1 if comparison.failed else 0
 
@@ -335,9 +339,12 @@ def cmd_sweep(args) -> int:
     counts = run_sweep(scenario, axes, out, workers=args.workers, scheduler=args.scheduler,
                        progress=_progress(args), force=args.force,
                        mode="rates-only" if args.rates_only else "run",
-                       figures=not args.no_figures)
+                       figures=not args.no_figures, plot_column=args.plot_column,
+                       fmt=args.fmt, dpi=args.dpi)
     print(f"sweep of {counts['points']} points (simulated): {counts['ok']} ok, "
           f"{counts['failed']} failed, {counts['skipped']} finished earlier -> {out / TABLE_FILE}")
+    if counts["figure"]:
+        print(f"  figure: {out / counts['figure']}")
     for key, n in counts["dropped"].items():
         print(f"  {key} does not apply at {n} point{'s' if n != 1 else ''} and was dropped there")
     if counts["lost"]:
@@ -386,9 +393,27 @@ def cmd_figures(args) -> int:
     """
     from ..workflows.demo import make_readme_figures
 
-    for path in make_readme_figures(Path(args.out)):
+    for path in make_readme_figures(Path(args.out), fmt=args.fmt, dpi=args.dpi):
         print(path)
     return 0
+
+
+def _dpi_option(text: str) -> float:
+    """--dpi N: a resolution within FIGURE_DPI_RANGE."""
+    lo, hi = FIGURE_DPI_RANGE
+    value = _positive_option(text, f"resolution from {lo} to {hi} dots per inch")
+    if not lo <= value <= hi:
+        raise argparse.ArgumentTypeError(f"expected a resolution from {lo} to {hi} dots per "
+                                         f"inch, got {text!r}")
+    return value
+
+
+def _figure_options(parser) -> None:
+    """--format and --dpi of a command that draws."""
+    parser.add_argument("--format", dest="fmt", choices=FIGURE_FORMATS, default=FIGURE_FORMATS[0],
+                        help=f"figure file format (default {FIGURE_FORMATS[0]})")
+    parser.add_argument("--dpi", type=_dpi_option, default=FIGURE_DPI,
+                        help=f"figure resolution in dots per inch (default {FIGURE_DPI})")
 
 
 def _force_option(parser, what: str = "an existing output folder") -> None:
@@ -446,12 +471,18 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = _command(sub, "demo", cmd_demo, "run the bundled default scenario end to end", scenario=False)
     p.add_argument("--out", default="recoilsim-demo", help="output folder (default ./recoilsim-demo)")
+    _figure_options(p)
     _force_option(p)
 
     p = _command(sub, "rates", cmd_rates, "golden-rule template function and packet-averaged rate")
     p.add_argument("--at", help="comma-separated momenta along the packet axis")
     p.add_argument("--json", action="store_true", help="print one JSON object")
-    p.add_argument("--plot", metavar="FILE.png", help="figure of the three models' rates")
+    p.add_argument("--plot", metavar="FILE.png", help="figure of the three models' rates (its "
+                   "suffix, or --format, sets the format)")
+    p.add_argument("--format", dest="fmt", choices=FIGURE_FORMATS, default=None,
+                   help="figure file format of --plot (default: from its suffix, else png)")
+    p.add_argument("--dpi", type=_dpi_option, default=FIGURE_DPI,
+                   help=f"figure resolution in dots per inch (default {FIGURE_DPI})")
 
     p = _command(sub, "run", cmd_run, "time evolution with the scenario's run.method")
     p.add_argument("--out", help="output folder")
@@ -461,6 +492,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="largest change of P_e and relative change of the rate that --check "
                         f"calls converged (default {CHECK_TOLERANCE:g})")
     p.add_argument("--dry-run", action="store_true", help="print the memory and work estimate only")
+    _figure_options(p)
     _force_option(p)
 
     p = _command(sub, "compare", cmd_compare, "perturbative, markov, exact (and fock) side by side")
@@ -468,6 +500,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--budget", type=_budget_option, default=COMPARE_BUDGET_SECONDS, metavar="SECONDS",
                    help="skip a method whose estimated wall time exceeds this "
                         f"(default {COMPARE_BUDGET_SECONDS:g} s)")
+    _figure_options(p)
     _force_option(p)
 
     p = _command(sub, "sweep", cmd_sweep, "sweep scenario keys over values, in parallel, resumable")
@@ -479,6 +512,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--rates-only", action="store_true",
                    help="golden-rule rates only: no time evolution, no per-point figures")
     p.add_argument("--no-figures", action="store_true", help="no per-point figures")
+    p.add_argument("--plot-column", default=None, metavar="COLUMN",
+                   help="the sweep.csv column sweep.png draws against the first --vary key "
+                        "(default rate_fitted, rate_golden_rule with --rates-only)")
+    _figure_options(p)
     _force_option(p, "a sweep folder recoilsim wrote for a different sweep")
 
     p = _command(sub, "new", cmd_new, "write a commented template scenario NAME.toml", scenario=False)
@@ -487,6 +524,7 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = _command(sub, "figures", cmd_figures, "regenerate the README's figures", scenario=False)
     p.add_argument("--out", default="figures")
+    _figure_options(p)
     return parser
 
 

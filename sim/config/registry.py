@@ -53,6 +53,10 @@ COMPARE_BUDGET_SECONDS = 600.0
 #: `recoilsim run --check --check-tolerance` default: the largest change of P_e and relative
 #: change of the fitted rate on refinement called converged (dimensionless)
 CHECK_TOLERANCE = 1e-3
+#: figure file formats every drawing command accepts (`--format`), the default first
+FIGURE_FORMATS = ("png", "pdf", "svg")
+#: default resolution of saved figures (dots per inch; `--dpi`) and the range accepted
+FIGURE_DPI, FIGURE_DPI_RANGE = 150, (50, 1200)
 MODEL_NAMES: tuple[str, ...] = tuple(MODEL_ENTRIES)
 
 

@@ -1,9 +1,10 @@
 """Plotting layer: every figure recoilsim draws, each stamped "simulated".
 
 A run folder's figures are chosen through one registry, `FIGURES` (file stem -> how it is drawn
-and the table it needs), by `result_figures`; `rates_figure` and `compare_figure` draw the
-`rates` and `compare` commands' figures.  Solvers never draw: they return data.  Importing this
-package does not import matplotlib (each figure does, when drawn) and never switches its backend.
+and what it needs), by `result_figures`; `rates_figure`, `compare_figure` and `sweep_figure`
+draw the `rates`, `compare` and `sweep` commands' figures, and `save` writes any of them as
+png, pdf or svg.  Solvers never draw: they return data.  Importing this package does not import
+matplotlib (each figure does, when drawn) and never switches its backend.
 """
 
 from __future__ import annotations
@@ -16,18 +17,36 @@ from ..result.result import DRAWERS
 from .compare import compare_figure
 from .counter_rotating import counter_rotating_figure
 from .rates import rates_figure
-from .run_figures import draw_decay, draw_momentum, draw_variance
-from .style import METHOD_COLOURS, MODEL_COLOURS, STAMP, save, stamp
+from .run_figures import (draw_decay, draw_momentum, draw_purity, draw_recoil_map,
+                          draw_variance, has_snapshots, variance_figure)
+from .style import (DPI, FORMATS, METHOD_COLOURS, MODEL_COLOURS, STAMP, figure_dpi,
+                    figure_format, figure_path, save, stamp)
+from .sweep import sweep_figure
 from .trajectories import trajectories_figure
 
 
 @dataclass(frozen=True)
 class Figure:
     """One figure of a run folder: `build(result)` returns the figure; drawn only when the
-    result has the table `needs` (None: always)."""
+    result has the table `needs` (None: any) and `drawable(result)` holds (None: always)."""
 
     build: Callable
     needs: str | None = None
+    drawable: Callable | None = None
+
+    def applies(self, result) -> bool:
+        """Whether the result has what this figure draws.
+
+        Parameters
+        ----------
+        result : Result
+
+        Returns
+        -------
+        bool
+        """
+        return ((self.needs is None or self.needs in result.tables)
+                and (self.drawable is None or bool(self.drawable(result))))
 
 
 def _single(draw: Callable) -> Callable:
@@ -41,36 +60,49 @@ def _single(draw: Callable) -> Callable:
 FIGURES: dict[str, Figure] = {
     "decay": Figure(_single(draw_decay)),
     "momentum": Figure(_single(draw_momentum)),
-    "variance": Figure(_single(draw_variance)),
+    "recoil_map": Figure(_single(draw_recoil_map), drawable=has_snapshots),
+    "variance": Figure(variance_figure),
     "counter_rotating": Figure(counter_rotating_figure, needs="counter_rotating"),
     "trajectories": Figure(trajectories_figure, needs="emissions"),
 }
 
-DRAWERS.update(decay=draw_decay, momentum=draw_momentum, variance=draw_variance)
+DRAWERS.update(decay=draw_decay, momentum=draw_momentum, variance=draw_variance,
+               purity=draw_purity, recoil_map=draw_recoil_map)
 
 
-def result_figures(result, folder: str | Path) -> list[str]:
-    """Draw every registered figure the result has data for into `folder` as NAME.png.
+def result_figures(result, folder: str | Path, *, fmt: str = "png", dpi: float = DPI) -> list[str]:
+    """Draw every registered figure the result has data for into `folder` as NAME.<fmt>.
 
     Parameters
     ----------
     result : Result
     folder : str or Path
         An existing folder (a run folder's stage).
+    fmt : str
+        "png", "pdf" or "svg".
+    dpi : float
+        Dots per inch (`sim.plotting.style.DPI_RANGE`).
 
     Returns
     -------
     list of str
         The file names written, in registry order.
+
+    Raises
+    ------
+    UsageError
+        For an unknown format or a resolution out of range, before anything is drawn.
     """
+    fmt, dpi = figure_format(fmt), figure_dpi(dpi)
     names = []
     for name, figure in FIGURES.items():
-        if figure.needs is None or figure.needs in result.tables:
-            save(figure.build(result), Path(folder) / f"{name}.png")
-            names.append(f"{name}.png")
+        if figure.applies(result):
+            names.append(save(figure.build(result), Path(folder) / name, fmt, dpi).name)
     return names
 
 
-__all__ = ["FIGURES", "METHOD_COLOURS", "MODEL_COLOURS", "STAMP", "compare_figure",
-           "counter_rotating_figure", "draw_decay", "draw_momentum", "draw_variance",
-           "rates_figure", "result_figures", "stamp", "trajectories_figure"]
+__all__ = ["DPI", "FIGURES", "FORMATS", "METHOD_COLOURS", "MODEL_COLOURS", "STAMP",
+           "compare_figure", "counter_rotating_figure", "draw_decay", "draw_momentum",
+           "draw_purity", "draw_recoil_map", "draw_variance", "figure_dpi", "figure_format",
+           "figure_path", "rates_figure", "result_figures", "save", "stamp", "sweep_figure",
+           "trajectories_figure", "variance_figure"]

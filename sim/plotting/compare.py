@@ -1,17 +1,75 @@
-"""compare.png: every method's excited population on one scenario, and its difference from exact."""
+"""compare.png: every method's excited population on one scenario, and per method its
+difference from exact.
+
+Curves lying on top of each other keep distinct dashes and markers and are named in a note; a
+method whose bath is truncated (`style.bath_truncation`) is drawn dashed and labelled with the
+modes it kept; a method that did not run is named with the reason.
+"""
 
 from __future__ import annotations
 
+import textwrap
+
 import numpy as np
 
-from .style import METHOD_COLOURS, in_output_units, pyplot, stamp, time_label
+from .style import (
+    LEGEND_SIZE,
+    NOT_CONVERGED,
+    add_note,
+    bath_truncation,
+    coincidence_lines,
+    in_output_units,
+    method_label,
+    method_style,
+    new_figure,
+    stamp_for,
+    time_label,
+)
 
 #: the method the others are measured against
 REFERENCE = "exact"
+#: the excited population is drawn down to this floor at least (log axis)
+POPULATION_FLOOR = 1e-8
+#: a left-out method's reason is wrapped at this many characters, and cut after two lines
+NOTE_WIDTH = 70
 
 
-def compare_figure(scenario, times, curves: dict, reference: str = REFERENCE):
-    """Every method's excited population and, below, its difference from the reference.
+def left_out_lines(left_out: dict) -> list[str]:
+    """Note lines naming each method that gave no curve, with its reason.
+
+    Parameters
+    ----------
+    left_out : dict
+        Method -> reason (one line).
+
+    Returns
+    -------
+    list of str
+        "method left out: reason", wrapped at NOTE_WIDTH characters, at most two lines each.
+    """
+    lines = []
+    for method, reason in left_out.items():
+        lines += textwrap.wrap(f"{method} left out: {reason}", NOTE_WIDTH, max_lines=2)
+    return lines
+
+
+def _residual_panel(ax, t, method: str, difference, style: dict) -> None:
+    """One method's P_e - P_e(reference) over time, with its largest size in the panel: the
+    method's colour, solid unless it is not converged, no markers (the panel names it)."""
+    solid = {"color": style["color"], "lw": 1.6}
+    ax.plot(t, difference, ls=NOT_CONVERGED if style["ls"] == NOT_CONVERGED else "-", **solid)
+    ax.axhline(0.0, color="0.6", lw=0.8)
+    largest = float(np.nanmax(np.abs(difference))) if np.isfinite(difference).any() else 0.0
+    ax.set_title(f"{method} − {REFERENCE}:  largest |difference| {largest:.2g}", loc="left",
+                 fontsize=LEGEND_SIZE, pad=3)
+    ax.set_ylabel(r"$\Delta P_e$")
+    ax.margins(y=0.15)
+
+
+def compare_figure(scenario, times, curves: dict, reference: str = REFERENCE, *,
+                   results: dict | None = None, left_out: dict | None = None):
+    """Every method's excited population and, below, one panel per method of its difference
+    from the reference, P_e(t) - P_e^ref(t).
 
     Parameters
     ----------
@@ -22,38 +80,43 @@ def compare_figure(scenario, times, curves: dict, reference: str = REFERENCE):
     curves : dict
         Method -> P_e on `times` (dimensionless).
     reference : str
-        The method the others are measured against (no lower panel without it).
+        The method the others are measured against (no difference panels without it).
+    results : dict, optional
+        Method -> its Result: a method whose bath is truncated (`bath_truncation`) is drawn
+        dashed and labelled "truncated: K of N modes".
+    left_out : dict, optional
+        Method -> reason, for methods that gave no curve (skipped or failed): named in a note.
 
     Returns
     -------
     matplotlib Figure
-        Top: P_e(t) on a log axis; bottom: P_e - P_e(reference); stamped simulated.
+        Top: P_e(t) on a log axis; below: one difference panel per method; stamped simulated.
     """
-    plt = pyplot()
+    results, left_out = results or {}, left_out or {}
     t = in_output_units(scenario, "t", times)
-    fig, (top, bottom) = plt.subplots(2, 1, figsize=(7, 6.5), sharex=True,
-                                      constrained_layout=True, height_ratios=(2, 1))
-    for method, values in curves.items():
-        top.semilogy(t, np.clip(values, 1e-300, None), color=METHOD_COLOURS.get(method),
-                     ls="--" if method == "perturbative" else "-", label=f"{method} (simulated)")
-    positive = [v[v > 0] for v in curves.values() if np.any(v > 0)]
-    floor = max(1e-8, min(float(v.min()) for v in positive) / 2) if positive else 1e-8
-    top.set_ylim(floor, 1.2)
-    top.set_ylabel("excited population $P_e(t)$")
-    top.set_title(scenario.title, fontsize=10)
-    top.legend(fontsize=8)
     baseline = curves.get(reference)
-    if baseline is not None:
-        for method, values in curves.items():
-            if method != reference:
-                bottom.plot(t, values - baseline, color=METHOD_COLOURS.get(method), label=method,
-                            ls="--" if method == "perturbative" else "-")
-        bottom.axhline(0.0, color="0.6", lw=0.8)
-        bottom.set_ylabel(r"$P_e - P_e^{\rm exact}$")
-        bottom.legend(fontsize=8)
-    else:
-        bottom.text(0.5, 0.5, "exact solver not available: no differences", ha="center",
-                    va="center", transform=bottom.transAxes)
-    bottom.set_xlabel(time_label(scenario))
-    stamp(fig)
+    others = [m for m in curves if m != reference] if baseline is not None else []
+    fig, axes = new_figure(1 + len(others), 1, figsize=(6.4, 4.2 + 1.25 * len(others)),
+                           sharex=True, height_ratios=(3.2,) + (1,) * len(others), squeeze=False)
+    top, panels = axes[0, 0], axes[1:, 0]
+    styles = {m: method_style(m, m not in results or bath_truncation(results[m]) is None)
+              for m in curves}
+    for method, values in curves.items():
+        top.semilogy(t, np.clip(values, 1e-300, None),
+                     label=method_label(method, results.get(method)), **styles[method])
+    positive = [v[v > 0] for v in curves.values() if np.any(v > 0)]
+    floor = max(POPULATION_FLOOR, min(float(v.min()) for v in positive) / 2) if positive else (
+        POPULATION_FLOOR)
+    top.set_ylim(floor, 1.3)
+    top.set_ylabel("excited population $P_e$")
+    top.set_title(scenario.title, fontsize=10)
+    top.legend(fontsize=LEGEND_SIZE, loc="upper right")
+    notes = coincidence_lines(curves, top) + left_out_lines(left_out)
+    if baseline is None:
+        notes.append(f"no {reference} run: differences not drawn")
+    add_note(top, notes)
+    for ax, method in zip(panels, others):
+        _residual_panel(ax, t, method, curves[method] - baseline, styles[method])
+    (panels[-1] if len(panels) else top).set_xlabel(time_label(scenario))
+    stamp_for(fig, scenario)
     return fig

@@ -5,12 +5,26 @@ from __future__ import annotations
 import numpy as np
 
 from ..solvers.markov.emissions import first_emissions
-from .style import pyplot, stamp, time_label
+from .style import (
+    LEGEND_SIZE,
+    METHOD_COLOURS,
+    OKABE_ITO,
+    REFERENCE_STYLE,
+    in_output_units,
+    labelled,
+    new_figure,
+    quantity_text,
+    stamp_for,
+    time_label,
+)
 
 #: trajectories drawn in the figure's left panel
 SHOWN_TRAJECTORIES = 6
 #: histogram bins of first-emission times
 HISTOGRAM_BINS = 30
+#: colours and dashes of the trajectories shown (Okabe-Ito order; common practice)
+TRAJECTORY_LINES = tuple(zip(("blue", "vermillion", "bluish green", "reddish purple", "orange",
+                              "sky blue"), ("-", "--", "-.", ":", "-", "--")))
 
 
 def trajectories_figure(result):
@@ -18,7 +32,8 @@ def trajectories_figure(result):
 
     Left: a few trajectories' packet-centre momentum plus their emission kicks against time; right:
     the histogram of first-emission times with the golden-rule expectation
-    N [exp(-Gamma t_a) - exp(-Gamma t_b)] per bin [t_a, t_b].
+    N [exp(-Gamma t_a) - exp(-Gamma t_b)] per bin [t_a, t_b].  Times, momenta and the rate in
+    the scenario's output units.
 
     Parameters
     ----------
@@ -30,42 +45,45 @@ def trajectories_figure(result):
     matplotlib Figure
         Stamped simulated.
     """
-    plt = pyplot()
+    scenario = result.scenario
     table = result.tables["emissions"]
     count = int(result.summary.get("stats", {}).get("trajectories", {}).get(
         "count", len(np.unique(table["trajectory"]))))
     times = result.times
-    fig, (left, right) = plt.subplots(1, 2, figsize=(11, 4.2), constrained_layout=True)
-    p0 = result.scenario.mean_momentum
+    fig, (left, right) = new_figure(1, 2, figsize=(11, 4.6))
+    p0 = scenario.mean_momentum
     traj, t, kick = (np.asarray(table[c]) for c in ("trajectory", "t", "kick"))
     emitted = list(np.unique(traj)[:SHOWN_TRAJECTORIES - 1])
     quiet = sorted(set(range(count)) - set(np.unique(traj).tolist()))[:1]
-    for j in emitted + quiet:
+    for j, (colour, dash) in zip(emitted + quiet, TRAJECTORY_LINES):
         mine = traj == j
-        steps = np.r_[0.0, t[mine], times[-1]]
-        path_p = p0 + np.r_[0.0, np.cumsum(kick[mine])]
-        left.step(steps, np.r_[path_p, path_p[-1]], where="post", lw=1.2, label=f"trajectory {j}")
-    left.set_xlabel(time_label(result.scenario))
-    left.set_ylabel("packet-centre momentum + emission kicks")
+        steps = in_output_units(scenario, "t", np.r_[0.0, t[mine], times[-1]])
+        path_p = in_output_units(scenario, "p", p0 + np.r_[0.0, np.cumsum(kick[mine])])
+        left.step(steps, np.r_[path_p, path_p[-1]], where="post", lw=1.4, ls=dash,
+                  color=OKABE_ITO[colour], label=f"trajectory {j}")
+    left.set_xlabel(time_label(scenario))
+    left.set_ylabel(labelled("packet-centre momentum + kicks", scenario, "p"))
     left.set_title("quantum trajectories (simulated)", fontsize=10)
-    left.legend(fontsize=7)
+    left.legend(fontsize=LEGEND_SIZE - 1)
     firsts = first_emissions(table)
     edges = np.linspace(0.0, times[-1], HISTOGRAM_BINS + 1)
     counts, _ = np.histogram(firsts, edges)
-    centres = 0.5 * (edges[1:] + edges[:-1])
+    centres = in_output_units(scenario, "t", 0.5 * (edges[1:] + edges[:-1]))
     shown = counts > 0
-    right.errorbar(centres[shown], counts[shown], yerr=np.sqrt(counts[shown]), fmt="o", ms=3,
-                   color="tab:purple", label=f"first emissions, {count} trajectories (simulated)")
+    right.errorbar(centres[shown], counts[shown], yerr=np.sqrt(counts[shown]), fmt="o", ms=4,
+                   mfc="white", color=METHOD_COLOURS.get(result.method, "0.3"),
+                   label=f"first emissions, {count} trajectories (simulated)")
     rate = result.summary.get("rate_golden_rule")
     if rate:
         expected = count * (np.exp(-rate * edges[:-1]) - np.exp(-rate * edges[1:]))
-        right.semilogy(centres, expected, "k--", lw=1,
-                       label=fr"golden rule $N\,e^{{-\Gamma t}}$, $\Gamma$={rate:.4g}")
+        gamma = quantity_text(rate, scenario, "rate", 4)
+        right.semilogy(centres, expected, **REFERENCE_STYLE,
+                       label=fr"golden rule $N\,e^{{-\Gamma t}}$, $\Gamma$ = {gamma}")
     right.set_yscale("log")
-    right.set_xlabel(time_label(result.scenario))
+    right.set_xlabel(time_label(scenario))
     right.set_ylabel("counts per bin")
     right.set_title("first-emission times (simulated decay measurement)", fontsize=10)
-    right.legend(fontsize=8)
-    fig.suptitle(result.scenario.title, fontsize=11)
-    stamp(fig)
+    right.legend(fontsize=LEGEND_SIZE)
+    fig.suptitle(scenario.title, fontsize=11)
+    stamp_for(fig, scenario)
     return fig

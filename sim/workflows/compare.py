@@ -8,7 +8,8 @@ failure and the comparison goes on.  Written into one folder, atomically:
 
     compare.csv   t, then the excited population of each method that ran (column = method key),
                   every curve interpolated linearly onto the first method's sample times;
-    compare.png   all curves on a log axis, and their differences from exact below;
+    compare.png   all curves on a log axis, a panel per method of its difference from exact
+                  below (a truncated, unconverged bath drawn dashed and labelled so);
     summary.json  "simulated": true, methods run, skipped and failed (each with its reason),
                   each method's estimate, fitted and golden-rule rates, largest difference from
                   exact, each method's warnings.
@@ -28,7 +29,7 @@ from ..errors import ResourceError, ScenarioError
 from ..io.atomic import atomic_write_text
 from ..io.writers import csv_text, output_folder, write_json
 from ..physics.checks import load_scenario
-from ..plotting import compare_figure, save
+from ..plotting import DPI, compare_figure, figure_dpi, figure_format, save
 from ..plotting.compare import REFERENCE
 from ..result import result_of
 from ..solvers import solver_for
@@ -274,7 +275,8 @@ def compare_summary(scenario, comparison: Comparison, curves: dict) -> dict:
     return summary
 
 
-def write_comparison(scenario, comparison: Comparison, stage: Path) -> dict:
+def write_comparison(scenario, comparison: Comparison, stage: Path, fmt: str = "png",
+                     dpi: float = DPI) -> dict:
     """Write compare.csv, compare.png and summary.json of a comparison into `stage`.
 
     Parameters
@@ -283,24 +285,31 @@ def write_comparison(scenario, comparison: Comparison, stage: Path) -> dict:
     comparison : Comparison
     stage : Path
         An existing folder (the output folder's stage).
+    fmt : str
+        Figure file format: "png", "pdf" or "svg".
+    dpi : float
+        Figure resolution (dots per inch).
 
     Returns
     -------
     dict
-        The summary written (`compare_summary`).
+        The summary written (`compare_summary`), with "figure" (the figure's file name).
     """
     units = scenario.units
     times, curves = common_curves(comparison.results)
     columns = {"t": units.to_output("t", times) if units else times, **curves}
     atomic_write_text(stage / "compare.csv", csv_text(columns))
-    save(compare_figure(scenario, times, curves), stage / "compare.png")
+    figure = compare_figure(scenario, times, curves, results=comparison.results,
+                            left_out={**comparison.skipped, **comparison.failed})
     summary = compare_summary(scenario, comparison, curves)
+    summary["figure"] = save(figure, stage / "compare", fmt, dpi).name
     write_json(stage / "summary.json", summary)
     return summary
 
 
 def compare_to_folder(scenario, out, force: bool = False, *, budget: float = DEFAULT_BUDGET,
-                      progress: bool = False, quiet: bool = True) -> Comparison:
+                      progress: bool = False, quiet: bool = True, fmt: str = "png",
+                      dpi: float = DPI) -> Comparison:
     """Compare every method on `scenario` and write compare.csv, compare.png, summary.json.
 
     Parameters
@@ -318,6 +327,10 @@ def compare_to_folder(scenario, out, force: bool = False, *, budget: float = DEF
         Progress bars inside long solver runs.
     quiet : bool
         No status lines on stderr.
+    fmt : str
+        Figure file format: "png", "pdf" or "svg".
+    dpi : float
+        Figure resolution (dots per inch).
 
     Returns
     -------
@@ -333,7 +346,8 @@ def compare_to_folder(scenario, out, force: bool = False, *, budget: float = DEF
         If the scenario does not load or validate, or no method gives a result.
     """
     scenario = load_scenario(scenario)
+    fmt, dpi = figure_format(fmt), figure_dpi(dpi)  # refused before any run
     with output_folder(Path(out), force, kind="compare") as stage:  # refused before any run
         comparison = compare_methods(scenario, budget, progress=progress, quiet=quiet)
-        comparison.summary = write_comparison(scenario, comparison, stage)
+        comparison.summary = write_comparison(scenario, comparison, stage, fmt, dpi)
     return comparison

@@ -15,6 +15,7 @@ from pathlib import Path
 from ..io.atomic import atomic_copy
 from ..io.writers import output_folder, write_json
 from ..physics.checks import load_scenario
+from ..plotting import DPI, figure_dpi, figure_format
 from ..result import run
 from .compare import compare_to_folder
 from .rates import rates_report, write_rates_figure
@@ -25,12 +26,16 @@ from .sweep import parse_vary, run_sweep
 DEMO_SWEEP = "packet.width=2:50:4log"
 #: the demo folder's sub-folders (each a recoilsim folder with its own marker)
 DEMO_FOLDERS = ["exact", "compare", "sweep"]
-#: figures the README shows: (file in figures/, where it comes from in the demo folder)
+#: figures the README shows: file stem in figures/ -> where it comes from in the demo folder
+#: (stems: the suffix is the figure format)
 README_FIGURES = {
-    "rates.png": "rates.png",
-    "decay.png": "exact/decay.png",
-    "momentum.png": "exact/momentum.png",
-    "compare.png": "compare/compare.png",
+    "rates": "rates",
+    "decay": "exact/decay",
+    "momentum": "exact/momentum",
+    "recoil_map": "exact/recoil_map",
+    "variance": "exact/variance",
+    "compare": "compare/compare",
+    "sweep": "sweep/sweep",
 }
 
 
@@ -61,7 +66,8 @@ def bundled(name: str) -> Path:
     return Path(__file__).parents[1] / "data" / f"{name}.toml"
 
 
-def build_demo(folder: Path, scenario=None, *, progress: bool = False, quiet: bool = True) -> dict:
+def build_demo(folder: Path, scenario=None, *, progress: bool = False, quiet: bool = True,
+               fmt: str = "png", dpi: float = DPI) -> dict:
     """Write the demo's files into an existing empty `folder`; returns a short report.
 
     Parameters
@@ -75,6 +81,10 @@ def build_demo(folder: Path, scenario=None, *, progress: bool = False, quiet: bo
         Progress bars inside long solver runs and the sweep.
     quiet : bool
         No status lines on stderr.
+    fmt : str
+        Figure file format: "png", "pdf" or "svg".
+    dpi : float
+        Figure resolution (dots per inch).
 
     Returns
     -------
@@ -91,16 +101,18 @@ def build_demo(folder: Path, scenario=None, *, progress: bool = False, quiet: bo
     scenario = scenario or default_scenario()
     report = rates_report(scenario, None)
     write_json(folder / "rates.json", report)
-    write_rates_figure(scenario, folder / "rates.png")
-    comparison = compare_to_folder(scenario, folder / "compare", progress=progress, quiet=quiet)
+    write_rates_figure(scenario, folder / "rates", fmt, dpi)
+    comparison = compare_to_folder(scenario, folder / "compare", progress=progress, quiet=quiet,
+                                   fmt=fmt, dpi=dpi)
     exact = comparison.results.get("exact") or run(scenario, method="exact")  # run once, reused
-    write_result(exact, folder / "exact")
+    write_result(exact, folder / "exact", fmt=fmt, dpi=dpi)
     counts = run_sweep(scenario, [parse_vary(DEMO_SWEEP)], folder / "sweep", workers=2,
-                       progress=progress)
+                       progress=progress, fmt=fmt, dpi=dpi)
     return {"rate": report["rate"], "exact": exact.summary, "sweep": counts}
 
 
-def run_demo(out: Path, force: bool = False, *, progress: bool = False, quiet: bool = True) -> dict:
+def run_demo(out: Path, force: bool = False, *, progress: bool = False, quiet: bool = True,
+             fmt: str = "png", dpi: float = DPI) -> dict:
     """`recoilsim demo`: build the demo into `out` (atomically as a whole).
 
     Parameters
@@ -113,6 +125,10 @@ def run_demo(out: Path, force: bool = False, *, progress: bool = False, quiet: b
         Progress bars inside long solver runs and the sweep.
     quiet : bool
         No status lines on stderr.
+    fmt : str
+        Figure file format: "png", "pdf" or "svg".
+    dpi : float
+        Figure resolution (dots per inch).
 
     Returns
     -------
@@ -128,28 +144,33 @@ def run_demo(out: Path, force: bool = False, *, progress: bool = False, quiet: b
     """
     scenario = default_scenario()
     with output_folder(out, force=force, kind="demo", folders=DEMO_FOLDERS) as stage:
-        report = build_demo(stage, scenario, progress=progress, quiet=quiet)
+        report = build_demo(stage, scenario, progress=progress, quiet=quiet, fmt=fmt, dpi=dpi)
     return {"title": scenario.title, **report}
 
 
-def make_readme_figures(out: Path) -> list[Path]:
+def make_readme_figures(out: Path, fmt: str = "png", dpi: float = DPI) -> list[Path]:
     """Regenerate the figures the README shows into `out` (by building the demo once).
 
     Parameters
     ----------
     out : Path
         Folder of the figures, created if missing; each figure is replaced atomically.
+    fmt : str
+        Figure file format: "png" (what the README shows), "pdf" or "svg".
+    dpi : float
+        Figure resolution (dots per inch).
 
     Returns
     -------
     list of Path
-        The figures written, one per entry of `README_FIGURES`.
+        The figures written, one per entry of `README_FIGURES` (NAME.<fmt>).
     """
+    fmt, dpi = figure_format(fmt), figure_dpi(dpi)
     out.mkdir(parents=True, exist_ok=True)
     written = []
     with tempfile.TemporaryDirectory() as tmp:
-        build_demo(Path(tmp))
+        build_demo(Path(tmp), fmt=fmt, dpi=dpi)
         for name, source in README_FIGURES.items():
-            atomic_copy(Path(tmp) / source, out / name)
-            written.append(out / name)
+            atomic_copy(Path(tmp) / f"{source}.{fmt}", out / f"{name}.{fmt}")
+            written.append(out / f"{name}.{fmt}")
     return written

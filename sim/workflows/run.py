@@ -8,14 +8,14 @@ import numpy as np
 
 from ..config.registry import CHECK_TOLERANCE
 from ..io.writers import output_folder, refuse_existing, write_json, write_tables
-from ..plotting import result_figures
+from ..plotting import DPI, figure_dpi, figure_format, result_figures
 from ..result import Result, result_of
 from ..solvers import solver_for
 from ..solvers.base import Estimate, available_memory
 
 
 def write_result(result: Result, out: str | Path, *, force: bool = False, figures: bool = True,
-                 extra_summary: dict | None = None) -> dict:
+                 extra_summary: dict | None = None, fmt: str = "png", dpi: float = DPI) -> dict:
     """Write every file of a run into `out`, atomically as a whole.
 
     Parameters
@@ -30,6 +30,10 @@ def write_result(result: Result, out: str | Path, *, force: bool = False, figure
         Draw the registered figures (`sim.plotting.FIGURES`) too.
     extra_summary : dict, optional
         Entries added to summary.json.
+    fmt : str
+        Figure file format: "png", "pdf" or "svg".
+    dpi : float
+        Figure resolution (dots per inch).
 
     Returns
     -------
@@ -45,7 +49,7 @@ def write_result(result: Result, out: str | Path, *, force: bool = False, figure
     with output_folder(out, force, kind="run") as stage:
         summary = write_tables(result, stage, extra_summary)
         if figures:
-            summary["figures"] = result_figures(result, stage)
+            summary["figures"] = result_figures(result, stage, fmt=fmt, dpi=dpi)
         write_json(stage / "summary.json", summary)
     return summary
 
@@ -96,7 +100,8 @@ def convergence_report(result: Result, refined_result: Result,
 
 
 def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bool,
-                  check_tolerance: float = CHECK_TOLERANCE) -> dict:
+                  check_tolerance: float = CHECK_TOLERANCE, fmt: str = "png",
+                  dpi: float = DPI) -> dict:
     """Run the scenario's method, optionally the convergence check, and write the folder.
 
     Parameters
@@ -113,6 +118,10 @@ def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bo
         Show a progress bar on stderr during long runs.
     check_tolerance : float
         The convergence verdict's tolerance (`convergence_report`).
+    fmt : str
+        Figure file format: "png", "pdf" or "svg".
+    dpi : float
+        Figure resolution (dots per inch).
 
     Returns
     -------
@@ -129,6 +138,7 @@ def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bo
         (`ResourceError` for a run too large for the memory).
     """
     refuse_existing(out, force)  # before the run, not after it
+    fmt, dpi = figure_format(fmt), figure_dpi(dpi)  # a bad --format is refused before it too
     solver = solver_for(scenario, progress=progress)
     result = result_of(solver)
     extra = {}
@@ -140,7 +150,7 @@ def run_to_folder(scenario, out: Path, *, check: bool, force: bool, progress: bo
                                     "note": f"method {solver.name!r} has no discretisation to refine"}
         else:
             extra["convergence"] = convergence_report(result, result_of(refined), check_tolerance)
-    return write_result(result, out, force=force, extra_summary=extra)
+    return write_result(result, out, force=force, extra_summary=extra, fmt=fmt, dpi=dpi)
 
 
 def dry_run(scenario) -> tuple[Estimate, float]:

@@ -66,6 +66,7 @@ from ..io.writers import (csv_text, json_safe, output_folder, refuse_existing,
                           write_json, write_marker)
 from ..physics.checks import load_scenario
 from ..physics.golden_rule import packet_rate
+from ..plotting import DPI, FORMATS, figure_dpi, figure_format, save, sweep_figure
 from ..result import run
 from .rates import rates_report
 from .run import write_result
@@ -81,6 +82,9 @@ RESULT_COLUMNS = (*SUMMARY_COLUMNS, "warnings", "dropped", "status")
 MODES = ("run", "rates-only")
 DEFINITION_FILE = "sweep.json"
 TABLE_FILE = "sweep.csv"
+FIGURE_STEM = "sweep"
+#: sweep.csv columns sweep.png can draw (the numbers; --plot-column)
+PLOT_COLUMNS = (*SUMMARY_COLUMNS, "warnings")
 FAILED_FILE = "failed.json"
 LOCK_FILE = ".sweep.lock"
 #: names of the point folders (the sweep folder's marker lists them by this pattern)
@@ -114,6 +118,8 @@ class PointTask:
     folder: str
     mode: str = "run"
     figures: bool = True
+    fmt: str = "png"
+    dpi: float = DPI
 
 
 # ---------------------------------------------------------------------------------------------
@@ -425,7 +431,8 @@ def run_point(task: PointTask) -> int:
             result = run(scenario)
             gamma["gamma_over_omega"] = result.summary["rate_golden_rule"] / scenario.detector.gap
             write_result(result, folder, force=True, figures=task.figures,
-                         extra_summary={"sweep_point": record, **gamma})
+                         extra_summary={"sweep_point": record, **gamma}, fmt=task.fmt,
+                         dpi=task.dpi)
     except Exception as exc:  # noqa: BLE001 - recorded in failed.json and sweep.csv
         failure = {"sweep_point": record, "status": f"failed: {one_line(exc)}", "simulated": True}
         with output_folder(folder, force=True, kind="sweep-point") as stage:
@@ -608,7 +615,8 @@ def sweep_folder(out: Path, ident: dict, force: bool = False):
             fcntl.flock(lock, fcntl.LOCK_EX | fcntl.LOCK_NB)
         if not definition_file.is_file():
             write_json(definition_file, ident)
-            write_marker(out, "sweep", files=[DEFINITION_FILE, TABLE_FILE, LOCK_FILE],
+            write_marker(out, "sweep", files=[DEFINITION_FILE, TABLE_FILE, LOCK_FILE,
+                                              *(f"{FIGURE_STEM}.{f}" for f in FORMATS)],
                          folder_pattern=POINT_PATTERN)
         remove_stale_stages(out, pattern=STALE_PATTERN)
         yield out
@@ -631,6 +639,51 @@ def write_table(out: Path, keys: list[str], rows: dict[int, dict]) -> None:
     ordered = [rows[i] for i in sorted(rows)]
     columns = {name: [row[name] for row in ordered] for name in [*keys, *RESULT_COLUMNS]}
     atomic_write_text(out / TABLE_FILE, csv_text(columns))
+
+
+def default_plot_column(mode: str) -> str:
+    """The column sweep.png draws unless told: the fitted rate, or the golden rule (rates-only).
+
+    Parameters
+    ----------
+    mode : str
+        The sweep's mode ("run" or "rates-only").
+
+    Returns
+    -------
+    str
+        "rate_golden_rule" for rates-only sweeps, else "rate_fitted".
+    """
+    return "rate_golden_rule" if mode == "rates-only" else "rate_fitted"
+
+
+def write_sweep_figure(scenario: Scenario, out: Path, column: str, fmt: str, dpi: float) -> str:
+    """sweep.<fmt>: `column` of sweep.csv against the first varied key, a line per other value.
+
+    The fitted rate is drawn with the golden-rule rate beside it as a thin reference line.
+
+    Parameters
+    ----------
+    scenario : Scenario
+        The base scenario (title, output units).
+    out : Path
+        The sweep folder holding sweep.csv.
+    column : str
+        A column of `PLOT_COLUMNS`.
+    fmt : str
+        "png", "pdf" or "svg".
+    dpi : float
+        Dots per inch.
+
+    Returns
+    -------
+    str
+        The file name written.
+    """
+    reference = "rate_golden_rule" if column == "rate_fitted" else None
+    figure = sweep_figure(out / TABLE_FILE, column, scenario.units, reference=reference,
+                          title=scenario.title)
+    return save(figure, out / FIGURE_STEM, fmt, dpi).name
 
 
 # ---------------------------------------------------------------------------------------------
@@ -777,7 +830,8 @@ def finished_indices(tasks: list[PointTask], workers: int, scheduler: str | None
 
 def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int | None = None,
               scheduler: str | None = None, progress: bool = False, force: bool = False,
-              mode: str = "run", figures: bool = True) -> dict[str, Any]:
+              mode: str = "run", figures: bool = True, plot_column: str | None = None,
+              fmt: str = "png", dpi: float = DPI) -> dict[str, Any]:
     """Run (or resume) a sweep into `out`; returns counts of its points.
 
     Parameters
@@ -801,13 +855,20 @@ def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int |
         time evolution, no figures; in this process unless `workers` or `scheduler` is given).
     figures : bool
         Draw each point's figures (mode "run").
+    plot_column : str, optional
+        The sweep.csv column sweep.png draws (`PLOT_COLUMNS`); default `default_plot_column`.
+    fmt : str
+        Figure file format: "png", "pdf" or "svg" (the points' figures and sweep.png).
+    dpi : float
+        Figure resolution (dots per inch).
 
     Returns
     -------
     dict
         Counts {"points", "ok", "failed", "lost", "skipped"} (skipped: finished before this
         call; lost: with their worker, rerun to resume), "lost_errors" (one line per lost
-        point) and "dropped" (key -> number of points where it did not apply and was dropped).
+        point), "dropped" (key -> number of points where it did not apply and was dropped) and
+        "figure" (the file name of sweep.png, None when no point has finished).
 
     Raises
     ------
@@ -819,6 +880,11 @@ def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int |
     """
     if mode not in MODES:
         raise UsageError(f"sweep mode {mode!r}: allowed: {', '.join(MODES)}")
+    column = plot_column or default_plot_column(mode)
+    if column not in PLOT_COLUMNS:
+        raise UsageError(f"--plot-column {column!r}: not a number column of {TABLE_FILE}; "
+                         f"allowed: {', '.join(PLOT_COLUMNS)}")
+    fmt, dpi = figure_format(fmt), figure_dpi(dpi)
     points = sweep_points(axes)
     problems = invalid_points(scenario, points)
     if problems:
@@ -831,7 +897,7 @@ def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int |
         rows = {i: row for i, (f, v) in enumerate(zip(folders, points))
                 if (row := point_row(f, v)) is not None}
         done = {i for i, row in rows.items() if row["status"] == "ok"}
-        tasks = [PointTask(scenario, i, points[i], str(folders[i]), mode, figures)
+        tasks = [PointTask(scenario, i, points[i], str(folders[i]), mode, figures, fmt, dpi)
                  for i in range(len(points)) if i not in done]
         write_table(out, keys, rows)
         lost = []
@@ -852,10 +918,12 @@ def run_sweep(scenario: Scenario, axes: list[Axis], out: Path, *, workers: int |
                     if (row := point_row(f, v)) is not None}
             write_table(out, keys, rows)
             raise
+        figure = write_sweep_figure(scenario, out, column, fmt, dpi) if rows else None
     failed = sum(1 for row in rows.values() if row["status"] != "ok")
     dropped: dict[str, int] = {}
     for row in rows.values():
         for key in filter(None, row["dropped"].split(";")):
             dropped[key] = dropped.get(key, 0) + 1
     return {"points": len(points), "ok": len(rows) - failed, "failed": failed,
-            "lost": len(lost), "lost_errors": lost, "skipped": len(done), "dropped": dropped}
+            "lost": len(lost), "lost_errors": lost, "skipped": len(done), "dropped": dropped,
+            "figure": figure}
