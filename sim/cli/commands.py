@@ -104,8 +104,8 @@ def _fit_words(summary: dict) -> str:
     """The fitted rate and its verdict, or why no rate is given."""
     unit = summary.get("units", {}).get("rate_fitted", "")
     rate, fit = summary.get("rate_fitted"), summary.get("fit") or {}
-    if rate is None or (isinstance(rate, float) and math.isnan(rate)):
-        return f"no fitted rate ({fit.get('reason') or 'no exponential part to fit'})"
+    if rate is None or (isinstance(rate, float) and math.isnan(rate)):  # the reason is a warning
+        return f"no fitted rate ({fit.get('verdict') or 'no exponential part to fit'})"
     verdict = fit.get("verdict")
     return f"fitted rate {rate:.6g}{' ' + unit if unit else ''}" + (f" ({verdict})" if verdict else "")
 

@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 from scipy import constants as const
 
-from ..config.units import SUMMARY_KEYS, UnitSystem
+from ..config.units import SUMMARY_FIT_KEYS, SUMMARY_KEYS, UnitSystem
 from ..errors import OutputExists
 from ..physics.golden_rule import recoil_velocity
 from ..result import Result
@@ -360,8 +360,9 @@ def unit_entries(units: UnitSystem, result: Result) -> dict:
     -------
     dict
         "units" (every column written -> its unit), recoil_velocity_m_s (m/s), the natural energy
-        unit (eV), and rate_golden_rule, rate_fitted, lamb_shift (inverse output time unit) and
-        t_max (output time unit).
+        unit (eV), rate_golden_rule, rate_fitted, lamb_shift (inverse output time unit) and
+        t_max (output time unit), and "fit" with its t_start, t_end (output time unit) and
+        line_rate (inverse output time unit).
     """
     columns = {c for table in result_tables(result).values() for c in table}
     names = {c: units.column_unit(c) for c in sorted(columns)}
@@ -371,6 +372,11 @@ def unit_entries(units: UnitSystem, result: Result) -> dict:
             value = result.summary[key]  # None: withheld with its reason (e.g. rate_fitted)
             entries[key] = None if value is None else float(units.to_output(key, value))
             names[key] = units.column_unit(key)
+    fit = result.summary.get("fit")
+    if fit is not None:  # the fit window and its line in output units too
+        entries["fit"] = {**fit, **{key: float(units.to_output(key, fit[key]))
+                                    for key in SUMMARY_FIT_KEYS if fit.get(key) is not None}}
+        names.update({f"fit.{key}": units.column_unit(key) for key in SUMMARY_FIT_KEYS})
     names["recoil_velocity_m_s"] = "m/s"
     names["natural_energy_unit_eV"] = "eV"
     names["resolved"] = ("natural units: hbar = c = 1, energy unit E0 = detector.gap = "

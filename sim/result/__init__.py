@@ -1,8 +1,9 @@
-"""Result layer: the one Result type, its assembly from a solver's Evolution, fitted rates, and
-the front door `run`."""
+"""Result layer: the one Result type, its assembly from a solver's Evolution, fitted rates with
+the verdict whether a curve has one, and the front door `run`."""
 
 from .assemble import assemble, result_of, run
-from .fits import fitted_excitation_rate, fitted_rate
+from .fits import RateFit, fit_decay, fit_excitation, trapped_population
 from .result import Result
 
-__all__ = ["Result", "assemble", "fitted_excitation_rate", "fitted_rate", "result_of", "run"]
+__all__ = ["RateFit", "Result", "assemble", "fit_decay", "fit_excitation", "result_of", "run",
+           "trapped_population"]

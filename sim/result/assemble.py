@@ -1,8 +1,9 @@
 """From a solver's raw Evolution to the one Result, and the front door `run`.
 
-`assemble` adds what every method shares: the golden-rule reference rate, the fitted rate,
-the shared warnings (perturbation parameter, rotating-wave validity, norm drift), the resolved
-parameters, library versions and the run's statistics.
+`assemble` adds what every method shares: the golden-rule reference rate, the fitted rate with
+its fit and verdict, the trapped population, the shared warnings (perturbation parameter,
+rotating-wave validity, norm drift, no fitted rate), the resolved parameters, library versions
+and the run's statistics.
 """
 
 from __future__ import annotations
@@ -19,7 +20,8 @@ from ..physics.models import EXCITED, level_of
 from ..solvers import solver_for
 from ..solvers.base import Evolution
 from ..solvers.common import norm_warning, physics_warnings
-from .fits import FIT_WINDOW, fitted_excitation_rate, fitted_rate
+from .fits import (FIT_WINDOW, MIN_FIT_SAMPLES, SHORT_WINDOW, THERMAL, TOO_FEW_SAMPLES,
+                   RateFit, fit_decay, fit_excitation)
 from .result import Result
 
 
@@ -73,27 +75,32 @@ def assemble(method: str, scenario: Scenario, evo: Evolution) -> Result:
     Returns
     -------
     Result
-        Its summary holds rate_golden_rule and rate_fitted (inverse time units), lamb_shift
-        (energy units), warnings, the scenario as read, resolved parameters, versions and stats.
+        Its summary holds rate_golden_rule and rate_fitted (inverse time units; rate_fitted is
+        None when the curve has no rate), fit (`RateFit.summary`: window, residual, verdict and
+        reason), trapped_population (the late-time plateau of P_e, dimensionless, or None),
+        lamb_shift (energy units), warnings, the scenario as read, resolved parameters,
+        versions and stats.
     """
     times = evo.times
     nan = np.full_like(times, np.nan)
     golden = packet_rate(scenario)
     excited_start = level_of(scenario.packet.internal) == EXCITED
-    fitted = (fitted_rate(times, evo.excited) if excited_start
-              else fitted_excitation_rate(times, evo.excited))
+    fit = (fit_decay(times, evo.excited, golden, thermal=scenario.field.temperature > 0)
+           if excited_start else fit_excitation(times, evo.excited, golden))
     warnings = (list(getattr(scenario, "notes", ())) + list(evo.warnings)
                 + physics_warnings(scenario, golden)
                 + norm_warning(evo.norm, NORM_ADVICE.get(method, "")))
-    if excited_start and not np.isfinite(fitted):
-        warnings.append(fit_warning(scenario, golden, evo.excited))
+    if excited_start and fit.rate is None and fit.verdict != THERMAL:
+        warnings.append(fit_warning(scenario, golden, fit, evo.excited))
     summary = {
         "title": scenario.title,
         "method": method,
         "simulated": True,
         "note": "simulated data from recoilsim, not a measurement",
         "rate_golden_rule": golden,
-        "rate_fitted": fitted,
+        "rate_fitted": fit.rate,
+        "fit": fit.summary(),
+        "trapped_population": fit.trapped_population,
         "lamb_shift": evo.lamb_shift,
         "t_max": float(times[-1]),
         "samples": int(len(times)),
@@ -129,7 +136,7 @@ NORM_ADVICE = {
 }
 
 
-def fit_warning(scenario: Scenario, golden: float, excited: np.ndarray) -> str:
+def fit_warning(scenario: Scenario, golden: float, fit: RateFit, excited: np.ndarray) -> str:
     """Why the decay curve gave no fitted rate, with the key that would help.
 
     Parameters
@@ -137,6 +144,8 @@ def fit_warning(scenario: Scenario, golden: float, excited: np.ndarray) -> str:
     scenario : Scenario
     golden : float
         The golden-rule rate (1 / time units).
+    fit : RateFit
+        The decay fit (`fit_decay`) whose rate is None.
     excited : ndarray
         The excited population over the sample times (dimensionless).
 
@@ -144,11 +153,12 @@ def fit_warning(scenario: Scenario, golden: float, excited: np.ndarray) -> str:
     -------
     str
         With zero coupling or a zero golden-rule rate: nothing decays (run.t_max and
-        run.samples cannot help; coupling.strength, or the level and field keys, can); when
-        P_e never falls to FIT_WINDOW[1]: raise run.t_max; else too few samples fall in the
-        window: raise run.samples.
+        run.samples cannot help; coupling.strength, or the level and field keys, can); too few
+        samples: raise run.t_max when P_e never falls to FIT_WINDOW[1], else run.samples; a
+        window shorter than a lifetime: raise run.t_max; trapping, oscillation or curvature:
+        the decay is not exponential, lower coupling.strength for one that is.
     """
-    low, high = FIT_WINDOW
+    high = FIT_WINDOW[1]
     head = "rate_fitted: no exponential fit"
     if scenario.coupling.strength == 0:
         return (f"{head}: coupling.strength = 0, so the detector does not decay and there is no "
@@ -158,11 +168,18 @@ def fit_warning(scenario: Scenario, golden: float, excited: np.ndarray) -> str:
         return (f"{head}: the golden-rule rate is zero (no emission is on shell for this packet), "
                 "so there is no decay to fit and a longer run.t_max or more run.samples will not "
                 "help; raise detector.gap above field.mass or change the packet")
-    if float(np.min(excited)) > high:
+    lifetimes = f"five golden-rule lifetimes are {5 / golden:.4g}"
+    if fit.verdict == TOO_FEW_SAMPLES and float(np.min(excited)) > high:
         return (f"{head}: P_e stays above {high} until t_max, so the decay has barely started; "
-                f"raise run.t_max (five golden-rule lifetimes are {5 / golden:.4g})")
-    return (f"{head}: fewer than three samples fall between P_e = {high} and {low}; raise "
-            "run.samples")
+                f"raise run.t_max ({lifetimes})")
+    if fit.verdict == TOO_FEW_SAMPLES:
+        return (f"{head}: fewer than {MIN_FIT_SAMPLES} samples fall between P_e = {high} and "
+                f"{FIT_WINDOW[0]}; raise run.samples")
+    if fit.verdict == SHORT_WINDOW:
+        return f"{head}: {fit.reason}; raise run.t_max ({lifetimes})"
+    return (f"{head}: {fit.reason}. The decay is not exponential here and the golden-rule rate "
+            "does not describe it; lower coupling.strength (or raise coupling.lifetime) for an "
+            "exponential decay")
 
 
 def resolved_parameters(scenario: Scenario) -> dict:

@@ -27,7 +27,8 @@ class Result:
     `momentum_grid` (along the packet axis) at `snapshot_times[j]`; `initial_density` is the
     packet's density there at t = 0.  `tables` holds method-specific extra tables (name ->
     column -> array), written as DIR/<name>.csv.  `final_state` is the final reduced COM state
-    as a `qutip.Qobj` where the solver has it.
+    as a `qutip.Qobj` where the solver has it.  `summary["rate_fitted"]` is None when the
+    curve has no rate; `summary["fit"]` says why (`sim.result.fits.RateFit.summary`).
     """
 
     method: str

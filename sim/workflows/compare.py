@@ -243,7 +243,8 @@ def compare_summary(scenario, comparison: Comparison, curves: dict) -> dict:
         "title", "simulated", "note", "methods", "skipped", "failed" (method -> reason),
         "estimates" (method -> seconds and bytes), "budget_seconds", "rate_golden_rule" and
         "rate_fitted" (method -> rate; inverse time in the output units of a scenario with
-        units, given under "units", natural units otherwise), "max_difference_from_exact"
+        units, given under "units", natural units otherwise; None where withheld), "fits"
+        (method -> the fit's verdict and reason), "max_difference_from_exact"
         (method -> largest absolute difference of the excited population from exact; None
         without an exact run), "warnings" (method -> list) and "scenario".
     """
@@ -262,6 +263,9 @@ def compare_summary(scenario, comparison: Comparison, curves: dict) -> dict:
                                       next(iter(results.values())).summary["rate_golden_rule"]),
         "rate_fitted": {m: _rate_out(scenario, r.summary["rate_fitted"])
                         for m, r in results.items()},
+        "fits": {m: {"verdict": (r.summary.get("fit") or {}).get("verdict"),
+                     "reason": (r.summary.get("fit") or {}).get("reason")}
+                 for m, r in results.items()},
         "max_difference_from_exact": (
             {m: float(np.max(np.abs(c - reference))) for m, c in curves.items() if m != REFERENCE}
             if reference is not None else None),

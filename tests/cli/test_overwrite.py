@@ -156,7 +156,7 @@ def test_sweep_force_replaces_only_recoilsim_sweeps(scenario_file, tmp_path, cap
     assert main([*second, "--force"]) == 0
     assert json.loads((out / "sweep.json").read_text())["vary"] == [["packet.width", [15]]]
     assert sorted(p.name for p in out.iterdir() if not p.name.startswith(".")) == [
-        "point-0000", "sweep.csv", "sweep.json"]
+        "point-0000", "sweep.csv", "sweep.json", "sweep.png"]
     # a sweep folder that gained a file of the user's is not replaced
     (out / "notes.txt").write_text("keep\n")
     capsys.readouterr()

@@ -23,7 +23,7 @@ from sim.workflows.sweep import parse_vary, run_sweep, sweep_points
 #: this module's scenario defaults for `make_scenario` (invented numbers)
 SWEEP = dict(title="sweep test", model="newton-wigner", ground_mass=1.0, gap=0.5, dims=1,
              field__mass=0.02, strength=0.05, width=20.0, momentum=0.3, internal="excited",
-             method="perturbative", t_max=150.0, samples=31)
+             method="perturbative", t_max=300.0, samples=31)
 
 
 def read_table(folder: Path) -> list[dict]:
@@ -120,7 +120,7 @@ def test_killed_sweep_resumes_with_every_point_once(make_scenario, write_scenari
     widths = sorted(float(r["packet.width"]) for r in rows)
     np.testing.assert_allclose(widths, np.geomspace(4, 40, 5), rtol=1e-11)
     assert sorted(p.name for p in out.iterdir() if not p.name.startswith(".")) == [
-        *(f"point-{i:04d}" for i in range(5)), "sweep.csv", "sweep.json"]
+        *(f"point-{i:04d}" for i in range(5)), "sweep.csv", "sweep.json", "sweep.png"]
     assert not list(out.glob(".*.part")) and not list(out.glob(".*.old"))
 
 
