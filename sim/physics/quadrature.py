@@ -61,3 +61,34 @@ def gauss_legendre_on(nodes: int, lo, hi) -> tuple[np.ndarray, np.ndarray]:
     lo, hi = np.asarray(lo, dtype=float)[..., None], np.asarray(hi, dtype=float)[..., None]
     half = 0.5 * (hi - lo)
     return half * x + 0.5 * (hi + lo), half * w
+
+
+@cache
+def gauss_hermite_normal(nodes: int) -> tuple[np.ndarray, np.ndarray]:
+    """Gauss-Hermite rule for the standard normal: Sum_i w_i f(x_i) ~ E[f(X)], X ~ N(0, 1).
+
+    The probabilists' rule (weight exp(-x^2 / 2)) with its weights normalised to sum 1 (they
+    sum to sqrt(2 pi)); exact for polynomials f of degree 2n - 1.  Read-only arrays, cached.
+
+    Parameters
+    ----------
+    nodes : int
+        Number of nodes n.
+
+    Returns
+    -------
+    (x, w) : tuple of ndarray
+        Nodes x_i (the roots of the Hermite polynomial He_n, in standard deviations) and
+        weights w_i (dimensionless, summing to 1).
+
+    References
+    ----------
+    M. Abramowitz and I. A. Stegun, Handbook of Mathematical Functions (1964), ch. 25,
+    eq. 25.4.46 (Gauss-Hermite integration, there with weight exp(-x^2)); NumPy
+    documentation, ``numpy.polynomial.hermite_e.hermegauss``.
+    """
+    x, w = np.polynomial.hermite_e.hermegauss(nodes)
+    w = w / w.sum()
+    x.flags.writeable = False
+    w.flags.writeable = False
+    return x, w

@@ -6,8 +6,8 @@ from pathlib import Path
 
 import numpy as np
 
+from ..config.registry import FIGURE_DPI
 from ..physics.golden_rule import packet_rate, rest_rate, template_grid, template_rate
-from ..plotting import rates_figure, save
 
 
 def rates_report(scenario, at: np.ndarray | None) -> dict:
@@ -44,7 +44,8 @@ def rates_report(scenario, at: np.ndarray | None) -> dict:
     return report
 
 
-def write_rates_figure(scenario, path: str | Path) -> None:
+def write_rates_figure(scenario, path: str | Path, fmt: str | None = None,
+                       dpi: float = FIGURE_DPI) -> Path:
     """rates.png of the scenario (`sim.plotting.rates_figure`), written atomically.
 
     Parameters
@@ -52,6 +53,17 @@ def write_rates_figure(scenario, path: str | Path) -> None:
     scenario : Scenario
         A loaded scenario.
     path : str or Path
-        The PNG file to write (replaced if it exists).
+        The file to write (replaced if it exists).
+    fmt : str, optional
+        "png", "pdf" or "svg"; default: from the suffix of `path` (png without one).
+    dpi : float
+        Dots per inch.
+
+    Returns
+    -------
+    Path
+        The file written (its suffix set by `fmt`).
     """
-    save(rates_figure(scenario), path)
+    from ..plotting import rates_figure, save  # only when drawing: `rates` stays quick
+
+    return save(rates_figure(scenario), path, fmt, dpi)

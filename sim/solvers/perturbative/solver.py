@@ -21,7 +21,7 @@ import numpy as np
 from scipy.special import erf
 
 from ...physics.field import field_for, packet_for
-from ...physics.golden_rule import ABSORPTION, EMISSION, channels_1d, kick_moments
+from ...physics.golden_rule import ABSORPTION, EMISSION, channel_table, kick_moments
 from ...physics.models import EXCITED, level_of, model_for
 from ...physics.packet import gaussian_density
 from ..base import SAMPLE_BYTES, Estimate, Evolution, Solver
@@ -33,6 +33,13 @@ PACKET_NODES_3D = 64
 #: (packet nodes x sample times) float arrays alive at once in `evolve` (populations, their
 #: integrals, transition numbers and the temporaries between them)
 NODE_TIME_ARRAYS = 6
+#: wall-time cost model of `evolve`, measured on a 2-core machine (benchmarks/golden_rule_speed.py
+#: times the rates): seconds per golden-rule evaluation over all packet nodes (a call of
+#: `kick_moments` or `channel_table`), per packet node and evaluation (by dimension), and per
+#: (packet node x sample time) of the rate-equation arrays
+RATE_CALL_SECONDS = 2e-3
+RATE_NODE_SECONDS = {1: 3e-6, 3: 30e-6}
+NODE_SAMPLE_SECONDS = 40e-9
 
 
 def two_level_populations(up, down, excited_start: bool, t):
@@ -103,21 +110,31 @@ class PerturbativeSolver(Solver):
     name = "perturbative"
 
     def estimate(self) -> Estimate:
-        """Size of the run: (packet nodes x sample times) arrays dominate.
+        """Size of the run: (packet nodes x sample times) arrays dominate, rates the time.
 
         memory = samples (SAMPLE_BYTES + 8 NODE_TIME_ARRAYS N) bytes with N the packet nodes
-        (PACKET_NODES_1D or PACKET_NODES_3D); work = 40 N samples floating-point operations.
+        (PACKET_NODES_1D or PACKET_NODES_3D); work = 40 N samples floating-point operations;
+        seconds = c (RATE_CALL_SECONDS + RATE_NODE_SECONDS[d] N) + NODE_SAMPLE_SECONDS N samples
+        with c the golden-rule evaluations over the nodes that cost: emission, absorption in a
+        thermal field (in the vacuum it has no quanta to absorb), and the 1D emission channels
+        of the snapshots for an excited start.
 
         Returns
         -------
         Estimate
-            states = N, keyed by run.samples (the only size a scenario sets here).
+            states = N, keyed by run.samples (the only size a scenario sets here); seconds
+            (wall time of `evolve`).
         """
-        samples = self.scenario.run.samples
-        nodes = PACKET_NODES_1D if self.scenario.dimensions == 1 else PACKET_NODES_3D
+        s = self.scenario
+        samples, dims = s.run.samples, s.dimensions
+        nodes = PACKET_NODES_1D if dims == 1 else PACKET_NODES_3D
         memory = samples * (SAMPLE_BYTES + 8.0 * NODE_TIME_ARRAYS * nodes)
+        calls = (1 + (s.field.temperature > 0)
+                 + (dims == 1 and level_of(s.packet.internal) == EXCITED))
+        seconds = (calls * (RATE_CALL_SECONDS + RATE_NODE_SECONDS[dims] * nodes)
+                   + NODE_SAMPLE_SECONDS * nodes * samples)
         return Estimate(states=nodes, memory_bytes=memory, work=40.0 * nodes * samples,
-                        keys=("run.samples",), breakdown={"run.samples": memory},
+                        seconds=seconds, keys=("run.samples",), breakdown={"run.samples": memory},
                         values={"run.samples": samples}, scaling={"run.samples": 1.0})
 
     def evolve(self, times):
@@ -169,28 +186,25 @@ class PerturbativeSolver(Solver):
         else:
             cos1, cos2 = packet.direction_moments(P)
             axis_p = P
-        down = [kick_moments(model, field, EMISSION, p) for p in P]
-        up = [kick_moments(model, field, ABSORPTION, p) for p in P]
-        rate_down = np.array([m.rate for m in down])
-        rate_up = np.array([m.rate for m in up])
-        excited_P, excited_time = two_level_populations(rate_up, rate_down, excited_start, times)
+        down = kick_moments(model, field, EMISSION, P)
+        up = kick_moments(model, field, ABSORPTION, P)
+        excited_P, excited_time = two_level_populations(up.rate, down.rate, excited_start, times)
         ground_time = times[None, :] - excited_time
-        n_down = rate_down[:, None] * excited_time
-        n_up = rate_up[:, None] * ground_time
+        n_down = down.rate[:, None] * excited_time
+        n_up = up.rate[:, None] * ground_time
 
-        def per_transition(moments, rate):
-            safe = np.where(rate > 0, rate, 1.0)
-            mean = np.array([m.mean for m in moments]) / safe
-            par2 = np.array([m.square for m in moments]) / safe
-            perp2 = np.array([m.transverse for m in moments]) / safe
+        def per_transition(moments):
+            safe = np.where(moments.rate > 0, moments.rate, 1.0)
+            mean, par2 = moments.mean / safe, moments.square / safe
+            perp2 = moments.transverse / safe
             return mean * cos1, 2 * axis_p * mean * cos2, par2 * cos2 + perp2 * (1 - cos2)
 
         mean0 = s.mean_momentum
         var0 = packet.momentum_std ** 2
         shift = np.zeros_like(times)
         second = np.zeros_like(times)
-        for moments, rate, count in ((down, rate_down, n_down), (up, rate_up, n_up)):
-            m1, cross, m2 = per_transition(moments, rate)
+        for moments, count in ((down, n_down), (up, n_up)):
+            m1, cross, m2 = per_transition(moments)
             shift += weight @ (count * m1[:, None])
             second += weight @ (count * (cross + m2)[:, None])
         p_mean = mean0 + shift
@@ -202,12 +216,10 @@ class PerturbativeSolver(Solver):
         if s.dimensions == 1:
             density = _snapshots_1d(model, field, packet, P, excited_P, excited_start, grid, snaps)
         else:
-            kick_var = weight @ ((np.array([m.square for m in down]) * cos2
-                                  + np.array([m.transverse for m in down]) * (1 - cos2))
-                                 / np.where(rate_down > 0, rate_down, 1.0))
+            safe = np.where(down.rate > 0, down.rate, 1.0)
+            kick_var = weight @ ((down.square * cos2 + down.transverse * (1 - cos2)) / safe)
             ground = 1 - excited
-            mean_kick = weight @ (np.array([m.mean for m in down]) * cos1
-                                  / np.where(rate_down > 0, rate_down, 1.0))
+            mean_kick = weight @ (down.mean * cos1 / safe)
             density = np.stack([ground[j] * _gaussian_uniform(grid - mean0 - mean_kick,
                                                               packet.momentum_std,
                                                               np.sqrt(3 * kick_var))
@@ -230,13 +242,11 @@ def _snapshots_1d(model, field, packet, P, excited_P, excited_start, grid, snaps
         return np.stack([np.interp(grid, P, col, left=0.0, right=0.0) for col in remaining.T],
                         axis=1)
     density = np.zeros((len(grid), len(snaps)))
-    channels = [channels_1d(model, field, EMISSION, p) for p in P]
-    for branch in range(max(len(c) for c in channels)):
-        kick = np.array([c[branch].kick if branch < len(c) else np.nan for c in channels])
+    channels = channel_table(model, field, EMISSION, P)
+    total = channels.rate.sum(axis=1)
+    for kick, rate in zip(channels.kick.T, channels.rate.T):
         # a channel's share of the emissions; none at all without coupling (all rates zero)
-        share = np.array([c[branch].rate / total
-                          if branch < len(c) and (total := sum(x.rate for x in c)) > 0 else 0.0
-                          for c in channels])
+        share = np.divide(rate, total, out=np.zeros_like(rate), where=total > 0)
         target = P + kick
         ok = np.isfinite(target)
         if ok.sum() < 2:
