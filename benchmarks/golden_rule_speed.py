@@ -17,7 +17,9 @@ Run:  python benchmarks/golden_rule_speed.py     (well under a minute)
 
 from __future__ import annotations
 
+import json
 import math
+import sys
 import time
 
 import numpy as np
@@ -108,9 +110,9 @@ def reference_1d(mass, p):
     return total
 
 
-def main():
-    print(f"{'case':>14} {'template(1 p)':>14} {'template(41 p)':>15} {'packet':>9}   "
-          f"{'reference':>10} {'time':>10} {'ratio':>7} {'difference':>10}")
+def measurements() -> list[dict]:
+    """Every case: our per-call times and each reference's time and relative difference."""
+    rows = []
     for dims in (3, 1):
         for ratio in RATIOS:
             mass = ratio * GAP
@@ -119,16 +121,38 @@ def main():
             value, one = best_time(lambda: template_rate(s, MOMENTUM))
             _, many = best_time(lambda: template_rate(s, grid))
             _, average = best_time(lambda: (packet_rate.cache_clear(), packet_rate(s))[1])
-            head = (f"{dims}D M/Om={ratio:<6.0e} {one * 1e3:11.2f} ms {many * 1e3:12.2f} ms "
-                    f"{average * 1e3:6.2f} ms")
             references = ([("k-quad", k_quadrature_3d, 3), ("explicit-u", reference_3d, 3)]
                           + ([("dblquad", broadened_3d, 1)] if ratio <= 10 else [])
                           if dims == 3 else [("brentq", reference_1d, 3)])
             for name, method, repeats in references:
                 expected, slow = best_time(lambda: method(mass, MOMENTUM), repeats=repeats)
-                print(f"{head:>60}   {name:>10} {slow * 1e3:7.2f} ms {slow / one:7.2g} "
-                      f"{abs(expected - value) / value:10.1e}")
-                head = ""
+                rows.append({"dims": dims, "ratio": ratio, "one": one, "many": many,
+                             "packet": average, "reference": name, "reference_seconds": slow,
+                             "difference": abs(expected - value) / value})
+    return rows
+
+
+def main():
+    rows = measurements()
+    if "--json" in sys.argv:  # one row per case (benchmarks/run_all.py): the broadened-delta
+        # dblquad for light detectors, the explicit angular density for heavy ones, brentq in 1D
+        print(json.dumps([{"benchmark": f"template_rate {r['dims']}D M/Omega={r['ratio']:.0e}",
+                           "ours_seconds": r["one"], "reference": f"scipy {r['reference']}",
+                           "reference_seconds": r["reference_seconds"],
+                           "agreement": r["difference"], "target": "a rate in milliseconds"}
+                          for r in rows if r["reference"] in ("dblquad", "brentq")
+                          or (r["reference"] == "explicit-u" and r["ratio"] > 10)]))
+        return
+    print(f"{'case':>14} {'template(1 p)':>14} {'template(41 p)':>15} {'packet':>9}   "
+          f"{'reference':>10} {'time':>10} {'ratio':>7} {'difference':>10}")
+    last = None
+    for r in rows:
+        head = "" if (r["dims"], r["ratio"]) == last else (
+            f"{r['dims']}D M/Om={r['ratio']:<6.0e} {r['one'] * 1e3:11.2f} ms "
+            f"{r['many'] * 1e3:12.2f} ms {r['packet'] * 1e3:6.2f} ms")
+        last = (r["dims"], r["ratio"])
+        print(f"{head:>60}   {r['reference']:>10} {r['reference_seconds'] * 1e3:7.2f} ms "
+              f"{r['reference_seconds'] / r['one']:7.2g} {r['difference']:10.1e}")
 
 
 if __name__ == "__main__":
