@@ -15,6 +15,7 @@ import math
 from dataclasses import dataclass, field
 from typing import Any, Callable, Mapping
 
+from ..errors import ScenarioError
 from .registry import METHOD_NAMES, MODEL_NAMES
 
 # ---------------------------------------------------------------------------------------------
@@ -81,6 +82,10 @@ MAX_FOCK = 1_000
 MAX_SEED = 2 ** 64 - 1
 
 
+#: `packet.shape`: the momentum-space shapes of the centre-of-mass packet
+PACKET_SHAPES = ("gaussian", "two-lobe", "file")
+
+
 def _count(low, high):
     return Key("int", f"{low} .. {high}", _between(low, high))
 
@@ -120,6 +125,12 @@ SCHEMA: dict[str, dict[str, Key]] = {
                         dimension="momentum"),
         "internal": Key("str", _choices_text("excited", "ground"), _choice("excited", "ground"),
                         "excited"),
+        "shape": Key("str", _choices_text(*PACKET_SHAPES), _choice(*PACKET_SHAPES), "gaussian"),
+        "separation": Key("float", '> 0 (packet.shape = "two-lobe" only)', _positive,
+                          dimension="length"),
+        "phase": Key("float", 'a number of radians (packet.shape = "two-lobe" only)', default=0.0),
+        "amplitude_file": Key("str", 'a CSV file with columns p,re,im (packet.shape = "file" '
+                              "only)", lambda v: bool(v.strip())),
     },
     "run": {
         "method": Key("str", _choices_text(*METHOD_NAMES), _choice(*METHOD_NAMES), "exact"),
@@ -128,6 +139,8 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "samples": Key("int", f"2 .. {MAX_SAMPLES}", _between(2, MAX_SAMPLES), 201),
         "trajectories": Key("int", f"0 .. {MAX_TRAJECTORIES}", _between(0, MAX_TRAJECTORIES), 0),
         "seed": Key("int", f"0 .. {MAX_SEED}", _between(0, MAX_SEED)),
+        "coherence_at": Key("float", "> 0 (omit for packet.separation of a two-lobe packet, "
+                            "else no coherence)", _positive, dimension="length"),
     },
     "bath": {
         "box_length": Key("float", "> 0", _positive, dimension="length"),
@@ -243,22 +256,89 @@ class Coupling:
 
 @dataclass(frozen=True)
 class PacketConfig:
-    """Gaussian COM packet: position std `width` (per axis), mean momentum vector, level.
+    """COM packet: its shape, position std `width` (per axis), mean momentum vector, level.
+
+    A "gaussian" packet is one Gaussian; a "two-lobe" packet two equal Gaussian lobes of
+    `width`, centres `separation` apart along the packet axis, the second with the relative
+    phase `phase`; a "file" packet has the axial momentum amplitude tabulated in
+    `amplitude_file` (times a Gaussian transverse profile of `width` in 3D).  Valid by
+    construction: shape keys given without their shape are refused (`shape_problems`).
 
     Parameters
     ----------
     width : float
-        Standard deviation of the position density per axis (inverse energy units, i.e. length
-        units); the momentum spread is sigma_p = 1 / (2 width) (momentum units).
+        Standard deviation of the position density per axis of the Gaussian (of each lobe; the
+        transverse profile of a "file" packet in 3D) (inverse energy units, i.e. length units);
+        its momentum spread is sigma_p = 1 / (2 width) (momentum units).
     momentum : tuple of float
-        Mean COM momentum p0, one component in 1D, (px, py, pz) in 3D (momentum units).
+        Mean COM momentum p0 of the Gaussian envelope, one component in 1D, (px, py, pz) in 3D
+        (momentum units); for a "file" packet only its direction in 3D (the packet axis).
     internal : str
         Initial internal level, "excited" (decay) or "ground" (thermal excitation).
+    shape : str
+        "gaussian", "two-lobe" or "file" (:data:`PACKET_SHAPES`).
+    separation : float, optional
+        "two-lobe": distance d between the lobe centres along the packet axis (length units).
+    phase : float
+        "two-lobe": relative phase phi of the second lobe (radians).
+    amplitude_file : str, optional
+        "file": the CSV file p,re,im of the axial amplitude, as written in the scenario (a
+        relative path is read from the current folder).
+
+    Raises
+    ------
+    ScenarioError
+        Listing every problem of `shape_problems`.
     """
 
     width: float
     momentum: tuple[float, ...]
     internal: str = "excited"
+    shape: str = "gaussian"
+    separation: float | None = None
+    phase: float = 0.0
+    amplitude_file: str | None = None
+
+    def __post_init__(self):
+        problems = self.shape_problems()
+        if problems:
+            raise ScenarioError(problems)
+
+    def shape_problems(self) -> list[str]:
+        """Keys that are valid alone but do not fit `shape`, one line each (key, value, rule).
+
+        separation is required by and allowed only with "two-lobe", a non-zero phase only with
+        "two-lobe", amplitude_file is required by and allowed only with "file", and a 1D "file"
+        packet takes its axial momenta from the file, so a non-zero momentum is refused.
+
+        Returns
+        -------
+        list of str
+            One problem line each; empty when the packet keys fit together.
+        """
+        shape, out = self.shape, []
+        own = {"separation": "two-lobe", "phase": "two-lobe", "amplitude_file": "file"}
+        for key, needs in own.items():
+            value = getattr(self, key)
+            if value and shape != needs:
+                out.append(f"packet.{key} = {_quoted(value)}: applies only to packet.shape = "
+                           f'"{needs}" (shape is "{shape}"); remove it')
+        if shape == "two-lobe" and self.separation is None:
+            out.append('packet.separation: missing; allowed: > 0, the distance between the lobe '
+                       'centres (required by packet.shape = "two-lobe")')
+        if shape == "file" and self.amplitude_file is None:
+            out.append("packet.amplitude_file: missing; allowed: a CSV file with columns "
+                       'p,re,im (required by packet.shape = "file")')
+        if shape == "file" and len(self.momentum) == 1 and self.momentum[0] != 0:
+            out.append(f"packet.momentum = {self.momentum[0]!r}: a 1D packet.shape = \"file\" "
+                       "takes its momenta from packet.amplitude_file; remove it (in 3D it gives "
+                       "the direction of the packet axis)")
+        return out
+
+
+def _quoted(value) -> str:
+    """A value as written in TOML: strings in double quotes, numbers by repr."""
+    return f'"{value}"' if isinstance(value, str) else repr(value)
 
 
 @dataclass(frozen=True)
@@ -278,6 +358,11 @@ class RunConfig:
         Number of quantum trajectories (markov only); 0: the master equation itself.
     seed : int, optional
         Random seed of the quantum trajectories.
+    coherence_at : float, optional
+        Distance d along the packet axis at which the spatial coherence
+        |Tr(rho_COM(t) exp(i P d))| / |Tr(rho_COM(0) exp(i P d))| is reported (length units);
+        None: the separation of a two-lobe packet, else none
+        (`sim.physics.coherence.coherence_distance`).
     """
 
     method: str = "exact"
@@ -285,6 +370,7 @@ class RunConfig:
     samples: int = 201
     trajectories: int = 0
     seed: int | None = None
+    coherence_at: float | None = None
 
 
 @dataclass(frozen=True)

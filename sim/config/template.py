@@ -39,11 +39,28 @@ MEANINGS: dict[str, str] = {
                     "momentum spread 1/(2 width)",
     "packet.momentum": "mean COM momentum (momentum): a number (along z in 3D) or [px, py, pz]",
     "packet.internal": "initial internal state: excited (decay) or ground (thermal excitation)",
+    "packet.shape": "momentum-space shape of the COM packet: gaussian (one Gaussian of width), "
+                    "two-lobe (two equal Gaussian lobes of width, separation apart along the "
+                    "packet axis, the direction of momentum) or file (the axial amplitude read "
+                    "from amplitude_file)",
+    "packet.separation": "two-lobe only: distance between the centres of the two lobes along "
+                         "the packet axis (length); the spatial coherence is reported at it",
+    "packet.phase": "two-lobe only: relative phase of the second lobe (radians)",
+    "packet.amplitude_file": "file only: a CSV file with the header p,re,im and one row per "
+                             "axial momentum p (natural units, increasing) with the real and "
+                             "imaginary part of the amplitude; interpolated linearly, zero "
+                             "outside the rows and normalized; in 3D times a Gaussian "
+                             "transverse profile of width, and momentum gives only the axis "
+                             "direction; a relative path is read from the current folder, not "
+                             "the scenario's",
     "run.method": "solver: " + described(METHOD_ENTRIES),
     "run.t_max": "last sample time (time); omitted: five golden-rule lifetimes",
     "run.samples": "number of sample times from 0 to t_max",
     "run.trajectories": "markov only: number of quantum trajectories (0: the master equation)",
     "run.seed": "random seed of the quantum trajectories",
+    "run.coherence_at": "distance d along the packet axis at which the spatial coherence "
+                        "|Tr(rho_COM(t) exp(i P d))| / |Tr(rho_COM(0) exp(i P d))| is reported "
+                        "(length); omitted: packet.separation of a two-lobe packet, else none",
     "bath.box_length": "1D truncated bath: length L_box of the periodic box (length); a box fakes "
                        "the continuum only for t < L_box",
     "bath.modes": "number of field modes of the truncated bath",
@@ -71,8 +88,11 @@ EXAMPLES: dict[str, object] = {
     "coupling.lifetime": 400.0,
     "coupling.matching": "nonrelativistic",
     "packet.width": 20.0,
+    "packet.separation": 60.0,
+    "packet.amplitude_file": "amplitude.csv",
     "run.t_max": 150.0,
     "run.seed": 1,
+    "run.coherence_at": 10.0,
     "bath.box_length": 2000.0,
     "bath.modes": 2048,
     "bath.window": 2.0,

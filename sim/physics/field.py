@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .models import EXCITED
-from .packet import Packet
+from .packet import Packet, packet_from_config
 
 #: automatic UV cutoff: this many times the largest energy a quantum can carry,
 #: K = CUTOFF_HEADROOM (E_e(p_fast) - M_g + THERMAL_REACH T)
@@ -200,7 +200,7 @@ def field_for(scenario, model=None) -> Field:
 
 
 def packet_for(scenario) -> Packet:
-    """The scenario's Gaussian packet.
+    """The scenario's packet, of any `packet.shape` (`packet_from_config`).
 
     Parameters
     ----------
@@ -209,7 +209,7 @@ def packet_for(scenario) -> Packet:
     Returns
     -------
     Packet
-        Position width (1 / momentum units) and mean momentum (momentum units) of
+        Position width (1 / momentum units), mean momentum (momentum units) and shape of
         ``scenario.packet``.
     """
-    return Packet(scenario.packet.width, scenario.packet.momentum)
+    return packet_from_config(scenario.packet)

@@ -20,7 +20,8 @@ from sim.workflows.new import write_template
 ROOT = Path(__file__).resolve().parents[2]
 SCENARIOS = sorted((ROOT / "scenarios").glob("*.toml"))
 #: keys whose example value conflicts with the template's other settings when set alone
-COMBINATION_KEYS = {"coupling.lifetime", "coupling.matching", "run.seed"}
+COMBINATION_KEYS = {"coupling.lifetime", "coupling.matching", "run.seed", "packet.separation",
+                    "packet.amplitude_file"}
 
 
 def test_every_schema_key_is_explained():
