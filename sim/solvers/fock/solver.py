@@ -86,6 +86,7 @@ from .basis import (
     state_count,
     truncation_edge,
 )
+from .cost import fastest_frequency, run_seconds, run_work, space_bytes
 from .references import rotating_wave_excited, second_order_transition, transition_shift
 
 #: default number of 1D box modes kept (the box may hold fewer)
@@ -106,13 +107,6 @@ MAX_SECTOR_STATES = 400_000
 MOMENTUM_BINS_3D = 121
 #: ODE settings of qutip.sesolve: tight tolerances, no renormalisation (the norm is checked)
 ODE_OPTIONS = {"atol": 1e-12, "rtol": 1e-10, "nsteps": 10**7, "normalize_output": False}
-# Memory of a run (`FockSolver.estimate`), measured as the peak resident memory of
-# vacuum_excitation.toml with 20, 30 and 40 box modes (10,626 to 82,251 states):
-#: bytes per Hamiltonian entry: the COO build (88 at its peak), and the previous sector's
-#: operator copies still held while the next one is built
-BYTES_PER_ENTRY = 150
-#: bytes per basis state: occupations, lookup keys, diagonal observables, ODE work vectors
-BYTES_PER_STATE = 200
 #: size keys named in a refusal, the most effective first
 SIZE_KEYS = ("bath.max_quanta", "bath.fock_modes", "bath.max_occupation")
 
@@ -281,16 +275,14 @@ class FockSolver(Solver):
                         bath.max_occupation or max_quanta, max_quanta)
 
     def estimate(self) -> Estimate:
-        """States of one sector (exact count), memory of its Hamiltonian and ODE, rough flops.
+        """States of one sector (exact count), memory and wall time of the run, rough flops.
 
-        With S = `state_count(plan)`, entries = S + 2 `link_count(plan)` (exact: the stored
-        Hamiltonian), G the axis-momentum bins (`grid_points`), T = run.samples and the sectors:
-
-            memory = BYTES_PER_ENTRY entries + BYTES_PER_STATE S
-                     + T (8 sectors (6 + G) + SAMPLE_BYTES),
-            work   = 8 x 20 entries x max(t_max max_quanta max_j w_j, 1) x sectors.
-
-        Nothing is enumerated (the counts are polynomial arithmetic, `occupation_counts`).
+        With S = `state_count(plan)`, entries E = S + 2 `link_count(plan)` (exact: the stored
+        Hamiltonian), G the axis-momentum bins (`grid_points`), T = run.samples and K sectors,
+        memory = `cost.space_bytes` + T (8 K (6 + G) + SAMPLE_BYTES) and seconds =
+        `cost.run_seconds` (the measured cost model of `sim.solvers.fock.cost`, with the fastest
+        phase bounded by `cost.fastest_frequency`).  Nothing is enumerated (the counts are
+        polynomial arithmetic, `occupation_counts`).
 
         Returns
         -------
@@ -309,16 +301,17 @@ class FockSolver(Solver):
         entries = states + 2 * link_count(plan)
         samples = self.scenario.run.samples
         sectors = len(plan.sector_weights)
-        space = float(entries * BYTES_PER_ENTRY + states * BYTES_PER_STATE)
+        space = space_bytes(states, entries, sectors)
         series = samples * (8.0 * sectors * (6 + grid_points(plan)) + SAMPLE_BYTES)
         # the Fock space grows fastest with max_quanta (SIZE_KEYS[0]); the series with samples
         breakdown = {SIZE_KEYS[0]: space, "run.samples": series}
-        span = last_sample_time(self.scenario) * float(plan.max_quanta
-                                                       * plan.modes.frequencies.max(initial=0.0))
-        work = 8.0 * entries * 20 * max(span, 1.0) * sectors
+        t_max, frequency = last_sample_time(self.scenario), fastest_frequency(self.model, plan)
         values = {"bath.max_quanta": plan.max_quanta, "bath.fock_modes": plan.modes.count,
                   "bath.max_occupation": plan.max_occupation, "run.samples": samples}
-        return Estimate(states=states, memory_bytes=space + series, work=work,
+        return Estimate(states=states, memory_bytes=space + series,
+                        work=run_work(states, entries, sectors, frequency, t_max),
+                        seconds=run_seconds(states, entries, plan.modes.count, sectors, frequency,
+                                            t_max),
                         keys=(*SIZE_KEYS, "run.samples"), breakdown=breakdown, values=values,
                         scaling={"run.samples": 1.0})
 

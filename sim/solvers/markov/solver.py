@@ -49,11 +49,20 @@ where the rates are then taken at the pre-kick transverse momentum.  The per-axi
 along the axis is therefore right (k*^2/3 per quantum in the static limit); the 3D purity and the
 position variance are not computed (nan).
 
-Solved with QuTiP 5 `mesolve` (sparse CSR operators); trajectories (`[run] trajectories`)
-unravel the same generator with `mcsolve` (`trajectories`).
+The generator maps diagonal density matrices to diagonal ones (H is diagonal, each L_{c,m} moves
+one state to one state, L^dag L is diagonal) and the coherences never feed the populations, which
+obey the Pauli rate equation dP/dt = W P on their own (`Sector.rate_matrix`).  1D: the density
+matrix is solved with QuTiP 5 `mesolve` (the COM purity and the final state need the coherences);
+3D, where every output is diagonal: the populations, exactly, by scipy's `expm_multiply`.
+Jumps that would move less than NEGLIGIBLE_TRANSFER of probability over the run are dropped
+(e.g. the absorption of quanta many temperatures above the gap, which would otherwise grow the
+closure).  Trajectories (`[run] trajectories`) unravel the same generator with `mcsolve`
+(`trajectories`).
 
 References: H.-P. Breuer & F. Petruccione, The Theory of Open Quantum Systems (OUP 2002), ch. 3
-(Lindblad form, Born-Markov-secular derivation); the QuTiP 5 documentation (mesolve, mcsolve).
+(Lindblad form, Born-Markov-secular derivation, the Pauli master equation); the QuTiP 5
+documentation (mesolve, mcsolve); A. H. Al-Mohy & N. J. Higham, SIAM J. Sci. Comput. 33, 488
+(2011) (expm_multiply).
 """
 
 from __future__ import annotations
@@ -63,11 +72,14 @@ from dataclasses import field as dataclass_field
 
 import numpy as np
 import qutip
+import scipy.sparse as sparse
+from scipy.sparse.linalg import expm_multiply
 
 from ...physics.field import field_for
 from ...physics.models import EXCITED, GROUND, level_of, model_for
-from ..base import SAMPLE_BYTES, Estimate, Evolution, Solver, credit
+from ..base import Estimate, Evolution, Solver, credit
 from ..common import last_sample_time, snapshot_indices
+from .cost import SectorSize, peak_bytes, run_seconds, run_work, series_bytes
 from .lattice import (
     EDGE_TOLERANCE,
     MAX_STATES,
@@ -81,17 +93,6 @@ from .lattice import (
     window_size,
 )
 from .trajectories import unravel
-
-#: bytes per stored entry of the CSR Liouvillian (complex value + 64-bit column index)
-LIOUVILLIAN_ENTRY_BYTES = 24
-#: qutip.liouvillian sums Kronecker products: peak memory while building, in final sizes
-LIOUVILLIAN_BUILD_FACTOR = 3.0
-#: n^2-long complex vectors alive while mesolve runs: the ODE's work arrays, the state, the dense
-#: copy for the COM purity, the expectation values and qutip's copies of them; calibrated on a
-#: measured 1D vacuum run (876 states: about 1 kB per density-matrix element at the peak)
-ODE_VECTORS = 60
-#: ODE steps per unit of (largest decay rate x time), on top of one step per sample time
-STEPS_PER_DECAY = 20.0
 
 # ---------------------------------------------------------------------------------------------
 # The solver
@@ -154,13 +155,39 @@ def com_purity(sector: Sector, rho: np.ndarray) -> float:
     size = int(lattice.max()) + 1
     com = np.zeros((size, size), dtype=complex)
     for level in (GROUND, EXCITED):
-        sel = np.nonzero(sector.levels == level)[0]
-        com[np.ix_(lattice[sel], lattice[sel])] += rho[np.ix_(sel, sel)]
+        # A_l: the level's states -> their lattice points, so that rho_ll on the lattice is
+        # A_l rho A_l^T; A_l (A_l rho)^T = A_l rho^T A_l^T = conj(A_l rho A_l^T), rho Hermitian
+        mine = sector.levels == level
+        A = sparse.csr_matrix((np.ones(int(mine.sum())), (lattice[mine], np.nonzero(mine)[0])),
+                              shape=(size, sector.size))
+        com += A @ (A @ rho).T
     return float(np.sum(np.abs(com) ** 2))
 
 
+def progress_bar(enabled: bool, total: int, what: str):
+    """A tqdm progress bar over `total` steps of `what` on stderr, or a silent stand-in.
+
+    Parameters
+    ----------
+    enabled : bool
+        Show the bar (the solver's `progress`).
+    total : int
+        Number of steps.
+    what : str
+        The step's description.
+
+    Returns
+    -------
+    tqdm.tqdm
+        Disabled (prints nothing, `update` and `close` do nothing) unless `enabled`.
+    """
+    from tqdm import tqdm
+
+    return tqdm(total=total, desc=f"markov: {what}", leave=False, disable=not enabled)
+
+
 def evolve_sector(sector: Sector, grid: MarkovGrid, psi0: qutip.Qobj, times: np.ndarray,
-                  snaps: np.ndarray, purity: bool) -> SectorRun:
+                  snaps: np.ndarray, purity: bool, progress: bool = False) -> SectorRun:
     """Lindblad evolution of one sector by qutip.mesolve, segment by segment between snapshots.
 
     d rho/dt = -i [H, rho] + sum_J (L_J rho L_J^dag - {L_J^dag L_J, rho} / 2) with the
@@ -181,6 +208,8 @@ def evolve_sector(sector: Sector, grid: MarkovGrid, psi0: qutip.Qobj, times: np.
         Snapshot indices into `times`, first and last included.
     purity : bool
         Record Tr rho_COM^2 (`com_purity`).
+    progress : bool, optional
+        Show mesolve's progress bar for each segment.
 
     Returns
     -------
@@ -202,9 +231,10 @@ def evolve_sector(sector: Sector, grid: MarkovGrid, psi0: qutip.Qobj, times: np.
     ground_sel = sector.levels == GROUND
     state = qutip.ket2dm(psi0)
     ground = [np.real(state.diag())[ground_sel]]
+    options = {**SOLVER_OPTIONS, "store_final_state": True,
+               "progress_bar": "tqdm" if progress else False}
     for a, b in zip(snaps[:-1], snaps[1:]):
-        res = qutip.mesolve(generator, state, times[a:b + 1], [], e_ops=e_ops,
-                            options={**SOLVER_OPTIONS, "store_final_state": True})
+        res = qutip.mesolve(generator, state, times[a:b + 1], [], e_ops=e_ops, options=options)
         for column, values in zip(series, res.expect):
             column.extend(list(values) if not column else list(values)[1:])
         state = res.final_state
@@ -212,6 +242,93 @@ def evolve_sector(sector: Sector, grid: MarkovGrid, psi0: qutip.Qobj, times: np.
     arrays = [np.real(np.array(c)) for c in series]
     return SectorRun(arrays[0], arrays[1], arrays[2], arrays[4], arrays[3],
                      arrays[5] if purity else np.full(len(times), np.nan), ground, state)
+
+
+def propagate(generator, start: np.ndarray, times: np.ndarray) -> np.ndarray:
+    """P(t) = exp(W (t - t_0)) P(t_0) at each of `times`, by scipy's expm_multiply.
+
+    Equally spaced times are done in one call (`expm_multiply` over an interval), others one
+    interval at a time.
+
+    Parameters
+    ----------
+    generator : scipy.sparse matrix, shape (n, n)
+        W (1 / time units).
+    start : ndarray, shape (n,)
+        P(t_0) (dimensionless).
+    times : ndarray, shape (T,)
+        Increasing times, t_0 first (time units).
+
+    Returns
+    -------
+    ndarray, shape (T, n)
+        P at each time (dimensionless).
+
+    References
+    ----------
+    A. H. Al-Mohy & N. J. Higham, "Computing the action of the matrix exponential, with an
+    application to exponential integrators", SIAM J. Sci. Comput. 33, 488 (2011) (the algorithm
+    of scipy.sparse.linalg.expm_multiply).
+    """
+    steps = np.diff(times)
+    if np.allclose(steps, steps[0], rtol=1e-12, atol=0.0):
+        return expm_multiply(generator, start, start=0.0, stop=times[-1] - times[0],
+                             num=len(times), endpoint=True)
+    out = [start]
+    for step in steps:
+        out.append(expm_multiply(generator * step, out[-1]))
+    return np.array(out)
+
+
+def evolve_populations(sector: Sector, grid: MarkovGrid, psi0: qutip.Qobj, times: np.ndarray,
+                       snaps: np.ndarray, tick=None) -> SectorRun:
+    """The sector's populations under its rate equation dP/dt = W P (`Sector.rate_matrix`).
+
+    The Lindblad generator maps the diagonal of rho onto itself and the coherences never feed it
+    (`Sector.rate_matrix`), so every diagonal observable - P_e, <p_z>, <p_z^2>, the cut-edge
+    population, the trace and the ground-state lattice probabilities - follows from the
+    populations alone, exactly: P(0) = |psi0|^2, P(t) = exp(W t) P(0) (`propagate`, segment by
+    segment between snapshots).  The COM purity needs the coherences and is not computed.
+
+    Parameters
+    ----------
+    sector : Sector
+    grid : MarkovGrid
+    psi0 : qutip.Qobj
+        Initial ket of the sector (`Sector.initial_ket`).
+    times : ndarray, shape (T,)
+        Sample times (time units).
+    snaps : ndarray of int
+        Snapshot indices into `times`, first and last included.
+    tick : callable, optional
+        Called once per segment (a progress bar's update).
+
+    Returns
+    -------
+    SectorRun
+        With purity nan and no final state.
+
+    References
+    ----------
+    H.-P. Breuer & F. Petruccione, The Theory of Open Quantum Systems (OUP 2002), ch. 3
+    (the Pauli master equation).
+    """
+    generator = sector.rate_matrix()
+    pz = grid.momentum(sector.index)
+    observed = np.stack([sector.levels == EXCITED, pz, pz * pz, np.ones(sector.size),
+                         sector.edge]).astype(float)
+    ground_sel = sector.levels == GROUND
+    populations = np.abs(psi0.full().ravel()) ** 2
+    series, ground = [observed @ populations], [populations[ground_sel]]
+    for a, b in zip(snaps[:-1], snaps[1:]):
+        segment = propagate(generator, populations, times[a:b + 1])
+        series.append(segment[1:] @ observed.T)
+        populations = segment[-1]
+        ground.append(populations[ground_sel])
+        if tick is not None:
+            tick()
+    excited, p1, p2, trace, edge = np.vstack([series[0][None, :], *series[1:]]).T
+    return SectorRun(excited, p1, p2, trace, edge, np.full(len(times), np.nan), ground)
 
 
 class MarkovSolver(Solver):
@@ -228,7 +345,8 @@ class MarkovSolver(Solver):
     ----------
     scenario : Scenario
     progress : bool, optional
-        Accepted for a uniform interface (default False).
+        Show progress bars on stderr: the closure's jump operators (per generation), and the
+        evolution (mesolve's bar in 1D, per segment of the rate equation in 3D); default False.
 
     References
     ----------
@@ -261,7 +379,10 @@ class MarkovSolver(Solver):
         model, field = model_for(s), field_for(s)
         grid = grid_for(s, times)
         start = level_of(s.packet.internal)
-        sectors = [build_sector(model, field, grid, rho, w, start) for rho, w in grid.transverse]
+        bar = progress_bar(self.progress, len(grid.transverse) * grid.generations, "jump operators")
+        sectors = [build_sector(model, field, grid, rho, w, start, bar.update)
+                   for rho, w in grid.transverse]
+        bar.close()
         return model, field, grid, sectors
 
     def _sectors(self, t_max: float):
@@ -284,24 +405,24 @@ class MarkovSolver(Solver):
         return cached[1]
 
     def estimate(self) -> Estimate:
-        """Size of the run: the sector states of the lattice closure and their Liouvillian.
+        """Size of the run: its sectors' lattice closures, their memory and wall time.
 
-        For a sector of n states with jump operators of m_J entries, qutip.liouvillian stores
-        N = n^2 (the diagonal: H and the anticommutators) + sum_J m_J^2 (the L (x) L* products)
-        entries, so memory = max over sectors of LIOUVILLIAN_BUILD_FACTOR (LIOUVILLIAN_ENTRY_BYTES
-        N + 8 n^2) + 16 ODE_VECTORS n^2, plus SAMPLE_BYTES per sample time and sector; work =
-        8 N (samples + STEPS_PER_DECAY Gamma_max t_max) per sector.  The closure is built (as
-        the run builds it) in the vacuum when the packet window has at most MAX_STATES points;
-        otherwise it is bounded without building it: n = grid.points (1 + generations) states
-        (at least MAX_STATES, where the closure is cut, or 2 grid.points), and 2 x directions x
-        processes jump operators of n / 2 entries each.
+        Each sector is sized by `cost.SectorSize` (states, jump entries, rate-matrix pairs, the
+        Liouvillian's entries); memory and seconds follow from the measured cost model of
+        `sim.solvers.markov.cost` (`cost.peak_bytes`, `cost.run_seconds`: the closure's build
+        and the evolution, the density matrix by mesolve in 1D, the populations in 3D).  The
+        closure is built (as the run builds it, and kept for it) when the packet window has at
+        most MAX_STATES points; otherwise it is bounded without building it
+        (`cost.SectorSize.bound`).
 
         Returns
         -------
         Estimate
-            states = the largest sector, keyed by grid.points, grid.span, grid.directions (3D)
-            and run.samples; the Liouvillian is credited to grid.points, the series over the
-            sample times to run.samples.
+            states = the largest sector; memory (bytes), work (floating-point operations) and
+            seconds (wall time of set-up and evolution, this machine); keyed by grid.points,
+            grid.span, grid.directions (3D) and run.samples; the sectors are credited to
+            grid.points (scaling 2 in 1D: the density matrix holds n^2 numbers; 1 in 3D), the
+            series over the sample times to run.samples.
 
         Raises
         ------
@@ -311,46 +432,37 @@ class MarkovSolver(Solver):
         s = self.scenario
         t_max, samples = last_sample_time(s), s.run.samples
         span, points = window_size(s.grid)
-        grid = grid_for(s, np.array([0.0, t_max]))
-        if points > MAX_STATES or grid.generations > 2:
-            # not built: a thermal closure costs about as much as the run's own setup
-            nodes = len(grid.transverse)
-            n = points * (1 + grid.generations)
-            n = n if n <= MAX_STATES else max(MAX_STATES, 2 * points)
-            families = 2 * (len(grid.directions) or 2) * (2 if grid.generations > 2 else 1)
-            sizes = [(n, [n // 2] * families, 0.0)] * nodes
+        density = s.dimensions == 1
+        if points <= MAX_STATES:
+            _, field, grid, sectors = self._sectors(t_max)
+            sizes = [SectorSize.of(sec, grid, field.temperature > 0) for sec in sectors]
         else:
-            sizes = []
-            for sec in self._sectors(t_max)[3]:
-                out = np.zeros(sec.size)
-                for _, sources, amps in sec.families.values():
-                    np.add.at(out, np.asarray(sources, dtype=int), np.square(amps))
-                sizes.append((sec.size, [len(a) for _, _, a in sec.families.values()],
-                              float(out.max(initial=0.0))))
-        peak, work = 0.0, 0.0
-        for n, entries, top_rate in sizes:
-            stored = n * n + sum(m * m for m in entries)
-            peak = max(peak, LIOUVILLIAN_BUILD_FACTOR * (LIOUVILLIAN_ENTRY_BYTES * stored
-                                                         + 8.0 * n * n) + 16.0 * ODE_VECTORS * n * n)
-            work += 8.0 * stored * (samples + STEPS_PER_DECAY * top_rate * t_max)
+            model, field = model_for(s), field_for(s)
+            grid = grid_for(s, np.array([0.0, t_max]))
+            sizes = [SectorSize.bound(model, field, grid, rho) for rho, _ in grid.transverse]
+        segments = len(snapshot_indices(samples)) - 1
         breakdown: dict = {}
-        credit(breakdown, peak, {"grid.points": points})
-        credit(breakdown, SAMPLE_BYTES * samples * len(sizes), {"run.samples": samples})
+        credit(breakdown, peak_bytes(sizes, samples, segments, density), {"grid.points": points})
+        credit(breakdown, series_bytes(samples, len(sizes)), {"run.samples": samples})
         keys = ("grid.points", "grid.span") + (("grid.directions",) if s.dimensions == 3 else ()) \
             + ("run.samples",)
         values = {"grid.points": points, "grid.span": span, "run.samples": samples}
         if s.dimensions == 3:
             values["grid.directions"] = s.grid.directions or POLAR_DIRECTIONS
-        # the Liouvillian and the ODE vectors hold ~ states^2 ~ grid.points^2 numbers
-        return Estimate(states=max(n for n, _, _ in sizes), memory_bytes=sum(breakdown.values()),
-                        work=work, keys=keys, breakdown=breakdown, values=values,
-                        scaling={"grid.points": 2.0, "run.samples": 1.0})
+        return Estimate(states=max(size.states for size in sizes),
+                        memory_bytes=sum(breakdown.values()),
+                        work=run_work(sizes, samples, segments, t_max, density),
+                        seconds=run_seconds(sizes, samples, segments, t_max, density),
+                        keys=keys, breakdown=breakdown, values=values,
+                        scaling={"grid.points": 2.0 if density else 1.0, "run.samples": 1.0})
 
     def evolve(self, times):
         """Solve the Lindblad master equation of every sector and combine them.
 
-        Each transverse sector b (weight W_b; one in 1D) is evolved by mesolve (`evolve_sector`) and
-        the observables are the weighted sums P_e = sum_b W_b P_e,b, <p_z^n> = sum_b W_b <p_z^n>_b,
+        Each transverse sector b (weight W_b; one in 1D) is evolved - its density matrix by
+        mesolve in 1D (`evolve_sector`), its populations by the rate equation in 3D
+        (`evolve_populations`) - and the observables are the weighted sums
+        P_e = sum_b W_b P_e,b, <p_z^n> = sum_b W_b <p_z^n>_b,
         Var p = <p_z^2> - <p_z>^2.  With run.trajectories > 0 the same generator is unravelled into
         quantum trajectories (`unravel`), recorded in the table "emissions".
 
@@ -384,8 +496,14 @@ class MarkovSolver(Solver):
         amplitudes = packet_amplitudes(s, grid, start)
         snaps = snapshot_indices(len(times))
         one_d = s.dimensions == 1
-        runs = [evolve_sector(sec, grid, sec.initial_ket(amplitudes), times, snaps, one_d)
-                for sec in sectors]
+        if one_d:
+            runs = [evolve_sector(sec, grid, sec.initial_ket(amplitudes), times, snaps, True,
+                                  self.progress) for sec in sectors]
+        else:
+            bar = progress_bar(self.progress, len(sectors) * (len(snaps) - 1), "rate equation")
+            runs = [evolve_populations(sec, grid, sec.initial_ket(amplitudes), times, snaps,
+                                       bar.update) for sec in sectors]
+            bar.close()
         weights = [sec.weight for sec in sectors]
 
         def combine(attr):
@@ -457,7 +575,8 @@ class MarkovSolver(Solver):
         dict
             grid_step (momentum units), grid_points, grid_span (sigma_p each side), directions,
             transverse_nodes, generations, states and jump_operators per sector, the direction
-            quadrature's largest relative rate error (dimensionless), and two descriptive strings.
+            quadrature's largest relative rate error (dimensionless), and three descriptive
+            strings (what was evolved, the Lamb shift, the kick split).
         """
         return {"grid_step": grid.step, "grid_points": grid.points, "grid_span": grid.span,
                 "directions": len(grid.directions) or 2,
@@ -465,6 +584,8 @@ class MarkovSolver(Solver):
                 "states": [sec.size for sec in sectors],
                 "jump_operators": [len(sec.families) for sec in sectors],
                 "direction_quadrature_error": max(sec.quadrature_error for sec in sectors),
+                "evolution": ("density matrix (mesolve)" if not grid.directions else
+                              "populations (the rate equation, exact for every 3D output)"),
                 "lamb_shift": "not included (secular Lindblad generator without it)",
                 "kick_split": "hat weights on neighbouring lattice shifts (rate and mean kick "
                               "conserved; extra variance <= step^2/4 per jump)"}
