@@ -25,7 +25,7 @@ import warnings
 from pathlib import Path
 
 from ..config.registry import (CHECK_TOLERANCE, COMPARE_BUDGET_SECONDS, FIGURE_DPI,
-                               FIGURE_DPI_RANGE, FIGURE_FORMATS)
+                               FIGURE_FORMATS)
 from ..errors import OutputExists, ScenarioError, UsageError
 
 EXIT_BAD_INPUT = 2
@@ -398,21 +398,12 @@ def cmd_figures(args) -> int:
     return 0
 
 
-def _dpi_option(text: str) -> float:
-    """--dpi N: a resolution within FIGURE_DPI_RANGE."""
-    lo, hi = FIGURE_DPI_RANGE
-    value = _positive_option(text, f"resolution from {lo} to {hi} dots per inch")
-    if not lo <= value <= hi:
-        raise argparse.ArgumentTypeError(f"expected a resolution from {lo} to {hi} dots per "
-                                         f"inch, got {text!r}")
-    return value
-
-
 def _figure_options(parser) -> None:
-    """--format and --dpi of a command that draws."""
+    """--format and --dpi of a command that draws (the range of --dpi is checked where the
+    figures are drawn, `sim.plotting.figure_dpi`, before any run)."""
     parser.add_argument("--format", dest="fmt", choices=FIGURE_FORMATS, default=FIGURE_FORMATS[0],
                         help=f"figure file format (default {FIGURE_FORMATS[0]})")
-    parser.add_argument("--dpi", type=_dpi_option, default=FIGURE_DPI,
+    parser.add_argument("--dpi", type=float, default=FIGURE_DPI,
                         help=f"figure resolution in dots per inch (default {FIGURE_DPI})")
 
 
@@ -481,7 +472,7 @@ def build_parser() -> argparse.ArgumentParser:
                    "suffix, or --format, sets the format)")
     p.add_argument("--format", dest="fmt", choices=FIGURE_FORMATS, default=None,
                    help="figure file format of --plot (default: from its suffix, else png)")
-    p.add_argument("--dpi", type=_dpi_option, default=FIGURE_DPI,
+    p.add_argument("--dpi", type=float, default=FIGURE_DPI,
                    help=f"figure resolution in dots per inch (default {FIGURE_DPI})")
 
     p = _command(sub, "run", cmd_run, "time evolution with the scenario's run.method")

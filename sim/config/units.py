@@ -66,6 +66,7 @@ COLUMN_POWERS = {
     "density": (0, -1, 0),
     "rate_golden_rule": (-1, 0, 0), "rate_fitted": (-1, 0, 0), "lamb_shift": (-1, 0, 0),
     "t_start": (1, 0, 0), "t_end": (1, 0, 0), "line_rate": (-1, 0, 0),
+    "rate": (-1, 0, 0), "length": (0, 0, 1),  # any rate or length (figures' axes)
 }
 #: momentum.csv snapshot columns are named "t=<time>" and hold momentum densities
 SNAPSHOT_PREFIX = "t="

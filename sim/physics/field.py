@@ -7,6 +7,7 @@ with F the smearing form factor.  Momenta in energy units (hbar = c = 1).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
@@ -199,8 +200,11 @@ def field_for(scenario, model=None) -> Field:
     return Field(f.dimensions, f.mass, f.smearing, cutoff, f.temperature)
 
 
+@lru_cache(maxsize=256)
 def packet_for(scenario) -> Packet:
     """The scenario's packet, of any `packet.shape` (`packet_from_config`).
+
+    Cached per scenario (frozen, compared by value): a "file" packet's table is read once.
 
     Parameters
     ----------

@@ -21,7 +21,7 @@ import numpy as np
 
 from ..config.registry import (FIGURE_DPI, FIGURE_DPI_RANGE, FIGURE_FORMATS, METHOD_NAMES,
                                MODEL_NAMES)
-from ..config.units import COLUMN_POWERS as OUTPUT_COLUMN_POWERS
+from ..config.units import COLUMN_POWERS
 from ..errors import UsageError
 from ..io.atomic import atomic_save_figure
 
@@ -68,10 +68,6 @@ RESOLUTION = 1 / 200
 #: scenario's own energy unit
 NATURAL_SYMBOLS = (r"\hbar/E", r"E/c", r"\hbar c/E")
 NATURAL_NOTE = "natural units: ħ = c = 1, E = the energy unit of the scenario's numbers"
-#: quantities drawn -> powers of (time, momentum, length): the output columns, and lengths
-#: (packet widths) and rates, which are no column of their own
-COLUMN_POWERS = {**OUTPUT_COLUMN_POWERS, "length": (0, 0, 1), "rate": (-1, 0, 0)}
-
 
 def pyplot():
     """matplotlib.pyplot, imported on first use.
@@ -420,13 +416,13 @@ def output_scale(scenario, column: str) -> float:
     Returns
     -------
     float
-        1 for a scenario without units; else the product over (time, momentum, length) of the
-        factors of `UnitSystem.factors` to the quantity's powers.
+        1 for a scenario without units; else ``UnitSystem.to_output(column, 1)``, the product
+        over (time, momentum, length) of its factors to the quantity's powers.
     """
     units = scenario.units
     if units is None:
         return 1.0
-    return math.prod(f ** n for f, n in zip(units.factors(), COLUMN_POWERS[column]))
+    return float(units.to_output(column, 1.0))
 
 
 def in_output_units(scenario, column: str, values):

@@ -25,6 +25,10 @@ MEMORY_SHARE = 0.8
 #: bytes held per sample time whatever the method: the sample times, a dozen observable series
 #: and the ODE solver's recorded output (Python lists of floats before they become arrays)
 SAMPLE_BYTES = 256.0
+#: wall time of one complex sparse (CSR) matrix-vector product per stored entry (seconds),
+#: timed alone on the 2-core machine the cost models were measured on; shared by the markov
+#: and fock cost models, whose right-hand sides are such products
+CSR_ENTRY_SECONDS = 3.6e-9
 
 
 @dataclass(frozen=True)

@@ -37,8 +37,6 @@ from ..solvers.base import refusal
 
 #: methods in the order they are run and written
 COMPARED = METHOD_NAMES
-#: default wall-time budget of one method (seconds; `--budget`)
-DEFAULT_BUDGET = COMPARE_BUDGET_SECONDS
 
 
 @dataclass
@@ -145,7 +143,7 @@ def _say(quiet: bool, text: str) -> None:
         print(f"recoilsim compare: {text}", file=sys.stderr, flush=True)
 
 
-def compare_methods(scenario, budget: float = DEFAULT_BUDGET, *, progress: bool = False,
+def compare_methods(scenario, budget: float = COMPARE_BUDGET_SECONDS, *, progress: bool = False,
                     quiet: bool = True) -> Comparison:
     """Size every method, skip those over the memory or time budget, run the others.
 
@@ -311,7 +309,7 @@ def write_comparison(scenario, comparison: Comparison, stage: Path, fmt: str = "
     return summary
 
 
-def compare_to_folder(scenario, out, force: bool = False, *, budget: float = DEFAULT_BUDGET,
+def compare_to_folder(scenario, out, force: bool = False, *, budget: float = COMPARE_BUDGET_SECONDS,
                       progress: bool = False, quiet: bool = True, fmt: str = "png",
                       dpi: float = DPI) -> Comparison:
     """Compare every method on `scenario` and write compare.csv, compare.png, summary.json.

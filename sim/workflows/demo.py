@@ -98,6 +98,7 @@ def build_demo(folder: Path, scenario=None, *, progress: bool = False, quiet: bo
     ScenarioError
         If a method refuses `scenario`, or a point of the packet-width sweep is invalid.
     """
+    fmt, dpi = figure_format(fmt), figure_dpi(dpi)  # refused before anything runs
     scenario = scenario or default_scenario()
     report = rates_report(scenario, None)
     write_json(folder / "rates.json", report)

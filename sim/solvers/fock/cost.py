@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..base import CSR_ENTRY_SECONDS
 from .basis import FockPlan, allowed_level
 
 # --- memory (bytes) --------------------------------------------------------------------------
@@ -46,7 +47,7 @@ C_HAMILTONIAN = 7.0e-7
 #: alone) and per state (the Adams integrator's vector work); reading the observables off
 #: |psi|^2 at the sample times fitted to no measurable cost beside them
 C_RHS = 7.8e-6
-C_ENTRY = 3.6e-9
+C_ENTRY = CSR_ENTRY_SECONDS
 C_STATE = 2.0e-8
 #: Adams right-hand sides per sector (start-up) and per radian of the fastest phase: a fit of
 #: the logarithm of the counted ones, 587 to 6,723 per sector (within 0.66-1.64 of the counts)

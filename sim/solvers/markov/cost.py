@@ -47,7 +47,7 @@ import numpy as np
 
 from ...physics.golden_rule import ABSORPTION, EMISSION, kick_moments
 from ...physics.models import EXCITED, GROUND
-from ..base import SAMPLE_BYTES
+from ..base import CSR_ENTRY_SECONDS, SAMPLE_BYTES
 from .lattice import MAX_STATES, MarkovGrid, Sector
 
 # --- memory (bytes) --------------------------------------------------------------------------
@@ -80,7 +80,7 @@ C_PAIR = 1.2e-9
 C_LIOUVILLIAN = 2.4e-7
 #: one right-hand side of mesolve: per Liouvillian entry (a complex CSR product, timed alone)
 #: and per density-matrix element (the Adams integrator's vector work)
-C_ENTRY = 3.6e-9
+C_ENTRY = CSR_ENTRY_SECONDS
 C_ELEMENT = 1.4e-8
 #: one sample time of mesolve's output: fixed, and per density-matrix element (expectation
 #: values, the dense copy and the COM purity)
