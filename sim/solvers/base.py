@@ -338,6 +338,10 @@ class Evolution:
         The sample times (time units), set by `Solver.run`.
     wall_seconds : float
         Wall-clock duration of `evolve` (seconds), set by `Solver.run`.
+    coherence : ndarray of complex, shape (T,), or None
+        chi(t) = Tr(rho_COM(t) exp(i P d)) at every sample time (dimensionless; nan where not
+        computed), for d from `sim.physics.coherence.coherence_distance`, levels traced out;
+        None where the scenario asks for no coherence or the method does not compute it.
     """
 
     excited: np.ndarray
@@ -357,6 +361,7 @@ class Evolution:
     warnings: list = field(default_factory=list)
     times: np.ndarray | None = None
     wall_seconds: float = float("nan")
+    coherence: np.ndarray | None = None  # chi(t) = Tr(rho_COM(t) exp(i P d)), complex
 
 
 class Solver:
