@@ -29,6 +29,8 @@ from .baths import Bath
 
 #: complex numbers allowed in the 1D reduced-state array (sectors x modes x state times)
 STATE_ELEMENTS = 4e7
+#: the reduced state (x variance, purity) is held at about this many evenly spread sample times
+STATE_TIMES = 101
 #: position grid: lattice Fourier transform padded to this many points per sector
 POSITION_OVERSAMPLING = 8
 #: largest momentum lattice for the final reduced state as a qutip.Qobj
@@ -37,19 +39,28 @@ FINAL_STATE_LIMIT = 4000
 AXIS_NODES, AZIMUTH_NODES = 16, 12
 #: 1D density on the lattice up to this many points, else on the perturbative grid
 LATTICE_DENSITY_LIMIT = 6001
+#: warn when the 1D sectors are further apart in momentum than this fraction of the packet's
+#: momentum width (the box spread of `lattice_density` then broadens the density visibly:
+#: its variance grows by D^2 / 12, 2 % of sigma_p^2 at D = sigma_p / 2)
+SECTOR_RESOLUTION = 0.5
 
 
 def lattice_density(scenario, bath: Bath, index: np.ndarray, probability: np.ndarray):
-    """Ground-state momentum density of the 1D sectors' modes on the momentum lattice.
+    """Ground-state momentum density of the 1D sectors' modes, on a grid the sectors resolve.
 
-    Probability / dk per lattice point on the occupied lattice p = j dk, or, when that lattice is
-    longer than LATTICE_DENSITY_LIMIT points, histogrammed onto `axis_grid` (`histogram`).
+    The sectors sample the packet every D = stride x dk in total momentum, so the density of
+    the detector momentum p = j dk after emission is known on the scale D, not dk: it is
+    deposited by linear weights (`cloud_density`) on a uniform grid of spacing h = max(D,
+    span / LATTICE_DENSITY_LIMIT) aligned with the sectors, i.e. the sectors' samples are
+    interpolated linearly instead of leaving the isolated zeros of a comb between them.  With
+    every lattice point a sector (D = dk) and a short span this is the lattice probability / dk.
+    Integrates to the ground-state population.
 
     Parameters
     ----------
     scenario : Scenario
     bath : Bath
-        The 1D bath (supplies dk = bath.spacing).
+        The 1D bath (supplies dk = bath.spacing and the stride).
     index : ndarray of int, shape (N,)
         Lattice index j of each detector momentum p = j dk.
     probability : ndarray, shape (N, S)
@@ -61,15 +72,63 @@ def lattice_density(scenario, bath: Bath, index: np.ndarray, probability: np.nda
         Momenta (momentum units).
     density : ndarray, shape (G, S)
         Density (1 / momentum units).
+    notes : list of str
+        A warning when the sector spacing D is too coarse for the packet (`SECTOR_RESOLUTION`).
     """
+    packet = packet_for(scenario)
+    cell = bath.stride * bath.spacing
     lo, hi = int(index.min()), int(index.max())
-    if hi - lo + 1 <= LATTICE_DENSITY_LIMIT:
-        grid = np.arange(lo, hi + 1) * bath.spacing
-        density = np.stack([np.bincount(index - lo, weights=col, minlength=hi - lo + 1)
-                            for col in probability.T], axis=1) / bath.spacing
-        return grid, density
-    grid = axis_grid(scenario, packet_for(scenario), model_for(scenario))
-    return grid, histogram(grid, index * bath.spacing, probability)
+    step = max(cell, (hi - lo) * bath.spacing / (LATTICE_DENSITY_LIMIT - 1))
+    anchor = bath.sectors[0].momentum
+    first = math.floor((lo * bath.spacing - anchor) / step)
+    last = math.ceil((hi * bath.spacing - anchor) / step)
+    grid = anchor + step * np.arange(first, last + 1)
+    density = cloud_density(grid, index * bath.spacing, probability)
+    notes = []
+    if cell > SECTOR_RESOLUTION * packet.momentum_std:
+        notes.append(f"momentum density: the sectors sit {cell:.3g} apart in momentum, more than "
+                     f"{SECTOR_RESOLUTION:g} of the packet's momentum width {packet.momentum_std:.3g}, "
+                     "so the ground-state density is interpolated over that spacing; raise "
+                     f"bath.sectors (now {len(bath.sectors)}) to resolve it")
+    return grid, density, notes
+
+
+def cloud_density(grid: np.ndarray, values, probability) -> np.ndarray:
+    """Density on a uniform grid of masses shared linearly between their two nearest points.
+
+    A mass w at v with grid[i] <= v < grid[i + 1] gives w (1 - f) to point i and w f to point
+    i + 1, f = (v - grid[i]) / h (linear interpolation's dual; common practice in particle-mesh
+    deposition), and the density is the deposit / h.  Mass is conserved for v inside the grid;
+    mass outside it is dropped.
+
+    Parameters
+    ----------
+    grid : ndarray, shape (G,)
+        Uniform grid (momentum units), G >= 2.
+    values : ndarray, shape (N,)
+        Where each mass sits (momentum units).
+    probability : ndarray, shape (N, S)
+        Masses (dimensionless).
+
+    Returns
+    -------
+    ndarray, shape (G, S)
+        Density (1 / momentum units).
+    """
+    step = grid[1] - grid[0]
+    position = (np.asarray(values, dtype=float) - grid[0]) / step
+    cell = np.floor(position).astype(int)
+    share = position - cell
+    at_end = cell == grid.size - 1  # the last point itself
+    cell, share = np.where(at_end, grid.size - 2, cell), np.where(at_end, 1.0, share)
+    inside = (cell >= 0) & (cell <= grid.size - 2)
+    mass = np.asarray(probability, dtype=float).reshape(position.size, -1)[inside]
+    cell, share = cell[inside], share[inside]
+    density = np.zeros((grid.size, mass.shape[1]))
+    for column in range(mass.shape[1]):
+        density[:, column] = (np.bincount(cell, mass[:, column] * (1 - share), minlength=grid.size)
+                              + np.bincount(cell + 1, mass[:, column] * share, minlength=grid.size))
+    return density / step
 
 
 class ReducedState1D:
@@ -79,22 +138,20 @@ class ReducedState1D:
     phi_k(P - k) = psi(P) c_k(P) on the lattice p = P - k.  The stored amplitudes are
     a[t, s, n] = sqrt(w_s) c_k(P_s, t) with k = n dk (n offset to the bath's lowest lattice mode)
     and e[t, s] = sqrt(w_s) c(P_s, t): component n sits at p = P_s - k_n.  The state times are
-    the recoil times thinned so that the array holds at most STATE_ELEMENTS amplitudes, the last
-    recoil time always kept.
+    the sample times thinned to about STATE_TIMES and at most STATE_ELEMENTS amplitudes, the last
+    always kept (`state_rows`).
 
     Parameters
     ----------
     bath : Bath
         A 1D bath with sectors on every lattice point (`fits`).
-    recoil : ndarray of int
-        Sample indices of the recoil times.
+    samples : int
+        Number of sample times.
 
     Attributes
     ----------
     times : ndarray of int
         Sample indices of the state times.
-    rows : ndarray of int
-        Their positions within `recoil`.
     level : ndarray, shape (R, sectors)
         e[t, s] (complex, dimensionless).
     modes : ndarray, shape (R, sectors, width)
@@ -135,18 +192,38 @@ class ReducedState1D:
         """
         return bath.stride == 1 and 2 * len(bath.sectors) * cls.lattice_range(bath)[1] <= STATE_ELEMENTS
 
-    def __init__(self, bath: Bath, recoil: np.ndarray):
+    @staticmethod
+    def state_rows(samples: int, sectors: int, width: int) -> np.ndarray:
+        """The sample indices where the state is held: every m-th and the last.
+
+        m = max(ceil(sectors x width x samples / STATE_ELEMENTS), ceil((samples - 1) /
+        (STATE_TIMES - 1))): at most STATE_ELEMENTS amplitudes and about STATE_TIMES times.
+
+        Parameters
+        ----------
+        samples : int
+            Number of sample times.
+        sectors, width : int
+            The bath's sector count and lattice width (`lattice_range`).
+
+        Returns
+        -------
+        ndarray of int
+            Increasing sample indices, the last always included.
+        """
+        stride = max(1, math.ceil(sectors * width * samples / STATE_ELEMENTS),
+                     math.ceil((samples - 1) / (STATE_TIMES - 1)))
+        rows = np.arange(0, samples, stride)
+        return rows if rows[-1] == samples - 1 else np.append(rows, samples - 1)
+
+    def __init__(self, bath: Bath, samples: int):
         self.first, width = self.lattice_range(bath)
         sectors = len(bath.sectors)
-        stride = max(1, math.ceil(sectors * width * recoil.size / STATE_ELEMENTS))
-        self.rows = np.arange(0, recoil.size, stride)
-        if self.rows[-1] != recoil.size - 1:
-            self.rows = np.append(self.rows, recoil.size - 1)
-        self.times = recoil[self.rows]
+        self.times = self.state_rows(samples, sectors, width)
         self.spacing = bath.spacing
         self.sector_index = np.array([round(sec.momentum / bath.spacing) for sec in bath.sectors])
-        self.modes = np.zeros((self.rows.size, sectors, width), dtype=complex)
-        self.level = np.zeros((self.rows.size, sectors), dtype=complex)
+        self.modes = np.zeros((self.times.size, sectors, width), dtype=complex)
+        self.level = np.zeros((self.times.size, sectors), dtype=complex)
 
     def add(self, index: int, sector, level: np.ndarray, modes: np.ndarray) -> None:
         """Store sector `index`'s level and mode amplitudes at the state times.

@@ -13,8 +13,9 @@ of sector P, c(P, t) the level amplitude and c_k(P, t) the mode amplitudes,
 and in 3D the same along the packet axis, with the emission direction's moments relative to P
 projected by the conditional direction moments of the Gaussian packet
 (`Packet.direction_moments`).  In 1D the reduced COM state follows on the momentum lattice
-(`observables.ReducedState1D`).  Recoil observables cost O(modes^2) per sector and time;
-beyond a work budget they are computed on every m-th sample time only (nan in between).
+(`observables.ReducedState1D`).  The mode amplitudes follow from the level amplitude by the
+exact Duhamel recurrence on the sample grid (`star.StarSpectrum.mode_series`), so the recoil
+observables at every sample time cost O(modes) per sector and time, as the decay itself does.
 """
 
 from __future__ import annotations
@@ -32,26 +33,33 @@ from ..base import SAMPLE_BYTES, Estimate, Evolution, Solver, credit
 from ..common import SNAPSHOTS, axis_grid, last_sample_time, masked, snapshot_indices
 from .baths import Bath, bath_for, discreteness_correction, lamb_sector, refined_keys
 from .observables import STATE_ELEMENTS, ReducedState1D, axis_density, lattice_density
-from .star import sector_lamb_shift, star_spectrum
+from .star import CHUNK_ELEMENTS, DUHAMEL_NODES, duhamel_substeps, sector_lamb_shift, star_spectrum
 
-#: sum over sectors of (bright modes)^2 x (recoil times) allowed before the recoil times thin out
-RECOIL_WORK = 4e10
 #: 3D axis density: Gaussian smoothing of the sampled histogram, in grid cells
 DENSITY_SMOOTHING = 1.5
 
 # Memory of a run (`ExactSolver.estimate`), measured as the peak resident memory of the bundled
 # scenarios (default.toml, recoil_3d.toml) at several sample counts:
-#: bytes per (recoil time x mode): the amplitudes, their squares and the kernel's block products
-MODE_BYTES = 80.0
+#: bytes per (kept sample time x mode): the bright and mode amplitudes and their squares
+MODE_BYTES = 48.0
+#: bytes per (sample time x Duhamel node): the level amplitude at the nodes and its blocks
+NODE_BYTES = 32.0
 #: bytes per amplitude of the 1D reduced state (the array, and the conjugate copy of `purity`)
 STATE_BYTES = 32.0
 #: bytes per bath mode (the sector's arrays and its star spectrum)
 BATH_BYTES = 128.0
-#: bytes per element of the kernels' temporary blocks, and the most elements they hold
-KERNEL_BYTES = 6.0
-KERNEL_ELEMENTS = 2 ** 22
+#: bytes per amplitude of the Duhamel recurrence's block (amplitudes, squares, kernel product)
+CHUNK_BYTES = 3 * 16.0
 #: temporaries of any run (level-amplitude blocks, snapshot densities)
 FIXED_BYTES = 8.0 * 2 ** 20
+# Wall time (`ExactSolver.estimate`), measured on this project's 2-core reference machine:
+#: floating-point operations per second of the blocked products and the recurrence
+FLOP_RATE = 2e9
+#: passes over the reduced state besides the purity's sector offsets (storing, conjugating,
+#: the padded Fourier transform of `ReducedState1D.position_variance`)
+STATE_PASSES = 20
+#: root finding of a sector: ROOT_SECONDS x (bright modes)^ROOT_POWER
+ROOT_SECONDS, ROOT_POWER = 2e-7, 1.5
 
 
 def unsupported(scenario) -> list[str]:
@@ -138,25 +146,31 @@ class ExactSolver(Solver):
     def estimate(self) -> Estimate:
         """Size of the run from its bath, without building anything in proportion to run.samples.
 
-        With T = run.samples, R the recoil times (`recoil_count`), N_s the modes and B_s the
-        bright modes of sector s (the largest: N, B), and in 1D the reduced state's
-        E = rows x sectors x lattice width amplitudes (`reduced_state_elements`):
+        With T = run.samples, N_s the modes, B_s the bright modes and Q_s the Duhamel quadrature
+        nodes per step of sector s (`duhamel_nodes`; the largest: N, B), R the sample times whose
+        amplitudes are kept (snapshots and, in 1D, the reduced state's times) and E the reduced
+        state's amplitudes (`reduced_state_elements`):
 
-            memory = MODE_BYTES R (N in 1D, B in 3D) + STATE_BYTES E + BATH_BYTES sum_s N_s
-                     + SAMPLE_BYTES T + KERNEL_BYTES min(KERNEL_ELEMENTS, R (N + 1)) + FIXED_BYTES,
-            work   = sum_s 8 (N_s + 1) (T + R B_s)      (level amplitudes, then recoil amplitudes).
+            memory = MODE_BYTES R (N in 1D, B in 3D) + NODE_BYTES T Q + STATE_BYTES E
+                     + BATH_BYTES sum_s N_s + SAMPLE_BYTES T + CHUNK_BYTES + FIXED_BYTES,
+            work   = sum_s [8 (N_s + 1) T (1 + Q_s) + 8 T Q_s B_s + 24 T B_s]
+                     + 8 E (sectors + STATE_PASSES)
+                     (level amplitudes, at the quadrature nodes, the Duhamel kernel, the
+                     recurrence and the mode sums; the reduced state's purity, a sum over
+                     sector offsets, and its position variance and storage),
+            seconds = work / FLOP_RATE + ROOT_SECONDS sum_s B_s^ROOT_POWER.
 
-        The constants are measured (peak resident memory of bundled scenarios).  The bath is
-        built for t_max alone (`last_sample_time`).
+        The constants are measured (peak resident memory and wall time of runs of the bundled
+        scenarios on the machine the module names).  The bath is built for t_max alone
+        (`last_sample_time`).
 
         Returns
         -------
         Estimate
             states = modes + 1 of the largest sector, memory (bytes), work (floating-point
-            operations), keyed by bath.modes, bath.window, bath.box_length (1D) or bath.radial_nodes
-            (3D), bath.sectors and run.samples; the (modes x recoil times) term is credited to the
-            larger count, the reduced state and the bath to bath.modes, the series over the
-            sample times to run.samples.
+            operations), seconds, keyed by bath.modes, bath.window, bath.box_length (1D) or
+            bath.radial_nodes (3D), bath.sectors and run.samples; each memory term is credited
+            to its larger count.
         """
         bath = self.bath()
         samples = self.scenario.run.samples
@@ -166,31 +180,37 @@ class ExactSolver(Solver):
         across = modes if bath.dimensions == 1 else max(bright, default=0)
         bath_bytes = BATH_BYTES * sum(sec.mode_energies.size for sec in bath.sectors)
         width = ReducedState1D.lattice_range(bath)[1] if bath.dimensions == 1 else 0
+        t_max = last_sample_time(self.scenario)
+
+        def nodes(count: int) -> list[int]:
+            step = t_max / max(count - 1, 1)
+            return [duhamel_nodes(sec, step) for sec in bath.sectors]
 
         def memory(count: int) -> tuple[dict, float]:
-            recoil = recoil_count(count, bright)
+            elements, state_rows = reduced_state_elements(bath, count, width)
+            kept = min(count, SNAPSHOTS + state_rows)
             breakdown: dict = {}
-            credit(breakdown, MODE_BYTES * recoil * across,
-                   {"bath.modes": across, "run.samples": recoil})
-            elements = reduced_state_elements(bath, recoil, width)
+            credit(breakdown, MODE_BYTES * kept * across, {"bath.modes": across, "run.samples": kept})
+            credit(breakdown, NODE_BYTES * count * max(nodes(count), default=0),
+                   {"run.samples": count})
             # rows x sectors x width, capped at STATE_ELEMENTS: the larger factor drives it
             credit(breakdown, STATE_BYTES * elements,
                    {"bath.modes": width, "run.samples": elements // max(sectors * width, 1)})
             credit(breakdown, bath_bytes, {"bath.modes": modes})
             credit(breakdown, SAMPLE_BYTES * count, {"run.samples": count})
-            total = (sum(breakdown.values()) + FIXED_BYTES
-                     + KERNEL_BYTES * min(KERNEL_ELEMENTS, recoil * (modes + 1)))
-            return breakdown, total
+            chunk = CHUNK_BYTES * min(CHUNK_ELEMENTS, count * max(bright, default=0))
+            return breakdown, sum(breakdown.values()) + chunk + FIXED_BYTES
 
         breakdown, total = memory(samples)
-        recoil = recoil_count(samples, bright)
-        work = sum(8.0 * (sec.mode_energies.size + 1) * (samples + recoil * b)
-                   for sec, b in zip(bath.sectors, bright))
+        work = sum(8.0 * samples * ((sec.mode_energies.size + 1) * (1 + q) + q * b + 3 * b)
+                   for sec, b, q in zip(bath.sectors, bright, nodes(samples)))
+        work += 8.0 * reduced_state_elements(bath, samples, width)[0] * (sectors + STATE_PASSES)
+        seconds = work / FLOP_RATE + ROOT_SECONDS * sum(b ** ROOT_POWER for b in bright)
         keys = ("bath.modes", "bath.window", "bath.box_length" if bath.dimensions == 1
                 else "bath.radial_nodes", "bath.sectors", "run.samples")
         values = {"bath.modes": modes, "bath.sectors": sectors, "run.samples": samples}
         # the parts credited to bath.modes grow about linearly with it; run.samples is resized
-        return Estimate(states=modes + 1, memory_bytes=total, work=work, keys=keys,
+        return Estimate(states=modes + 1, memory_bytes=total, work=work, seconds=seconds, keys=keys,
                         breakdown=breakdown, values=values, scaling={"bath.modes": 1.0},
                         resize=lambda count: memory(count)[1])
 
@@ -210,8 +230,9 @@ class ExactSolver(Solver):
     def evolve(self, times):
         """Exact single-excitation dynamics, sector by sector, at each of `times`.
 
-        Each sector's star spectrum (`star_spectrum`) gives c(P, t) at every time and c_k(P, t) at
-        the recoil times (`recoil_indices`), and
+        Each sector's star spectrum (`star_spectrum`) gives c(P, t) and, by the Duhamel recurrence
+        on the sample grid (`StarSpectrum.mode_series`), the mode sums of |c_k(P, t)|^2 at every
+        time, and
 
             P_e(t) = sum_P w_P |c(P, t)|^2,
             <p^n>  = sum_P w_P [ |c|^2 P^n + sum_k |c_k|^2 (P - k)^n ] / norm,
@@ -229,11 +250,11 @@ class ExactSolver(Solver):
         Returns
         -------
         Evolution
-            P_e(t) (dimensionless) at every time; <p>, Var p (momentum units, momentum^2) at the
-            recoil times, nan between; ground-state momentum densities at the snapshot times
+            P_e(t) (dimensionless), <p>, Var p (momentum units, momentum^2) at every time;
+            ground-state momentum densities at the snapshot times
             (1 / momentum units; 1D on the momentum lattice, 3D on `axis_grid`); in 1D, where the
             reduced state fits (`ReducedState1D.fits`), x_var (length^2), purity (dimensionless) and
-            the final reduced state; norm over the recoil times; lamb_shift (energy units).
+            the final reduced state; norm at every time; lamb_shift (energy units).
 
         Raises
         ------
@@ -248,12 +269,10 @@ class ExactSolver(Solver):
         s = self.scenario
         bath = self.bath()
         snaps = snapshot_indices(len(times))
-        recoil = recoil_indices(len(times), snaps,
-                                [np.unique(sec.mode_energies).size for sec in bath.sectors])
         residues = []
         spectra = (_spectrum(sec, residues) for sec in _progress(bath.sectors, self.progress))
         evolve_sectors = _evolve_1d if bath.dimensions == 1 else _evolve_3d
-        evo = evolve_sectors(s, bath, spectra, times, recoil, snaps)
+        evo = evolve_sectors(s, bath, spectra, times, snaps)
         lamb, lowest = lamb_shift(s, bath)
         evo.lamb_shift = lamb
         evo.warnings = list(bath.notes) + evo.warnings + self._warnings(bath, lowest)
@@ -261,7 +280,7 @@ class ExactSolver(Solver):
                            cutoff=bath.cutoff, spacing=bath.spacing,
                            recurrence_time=bath.recurrence_time, window=bath.window,
                            box_length=bath.box_length, sector_stride=bath.stride,
-                           recoil_samples=int(recoil.size), lamb_shift_lowest_modes=lowest,
+                           lamb_shift_lowest_modes=lowest,
                            residue_sum_error=max(residues))
         return evo
 
@@ -300,84 +319,60 @@ def _spectrum(sector, residues: list):
     return spectrum
 
 
-def recoil_indices(samples: int, snaps: np.ndarray, bright_counts) -> np.ndarray:
-    """Sample indices where recoil observables are computed.
-
-    All of them while samples x sum n^2 (n the bright modes of each sector) is within
-    RECOIL_WORK, else every m-th with m = ceil(samples sum n^2 / RECOIL_WORK); the first, the
-    last and the snapshots are always included.
-
-    Parameters
-    ----------
-    samples : int
-        Number of sample times.
-    snaps : ndarray of int
-        Snapshot indices.
-    bright_counts : iterable of int
-        Number of bright modes (distinct mode energies) of each sector.
-
-    Returns
-    -------
-    ndarray of int
-        Sorted sample indices.
-    """
-    work = sum(n * n for n in bright_counts) * samples
-    stride = max(1, math.ceil(work / RECOIL_WORK))
-    return np.union1d(np.union1d(np.arange(0, samples, stride), snaps), [samples - 1])
-
-
-def recoil_count(samples: int, bright_counts) -> int:
-    """How many recoil times `recoil_indices` keeps, without building them.
-
-    With the stride m = ceil(samples sum n^2 / RECOIL_WORK): ceil(samples / m) times on the
-    stride, plus at most the snapshots and the last time off it.
-
-    Parameters
-    ----------
-    samples : int
-        Number of sample times.
-    bright_counts : iterable of int
-        Number of bright modes of each sector.
-
-    Returns
-    -------
-    int
-        An upper bound (exact to SNAPSHOTS + 1) on the length of `recoil_indices`, at most
-        `samples`.
-    """
-    work = sum(n * n for n in bright_counts) * samples
-    stride = max(1, math.ceil(work / RECOIL_WORK))
-    return int(min(samples, -(-samples // stride) + SNAPSHOTS + 1))
-
-
-def reduced_state_elements(bath: Bath, recoil: int, width: int | None = None) -> int:
-    """Amplitudes the 1D reduced state holds (`ReducedState1D`), without building it.
+def reduced_state_elements(bath: Bath, samples: int, width: int | None = None) -> tuple[int, int]:
+    """Amplitudes the 1D reduced state holds (`ReducedState1D`), and its times, without building it.
 
     Parameters
     ----------
     bath : Bath
-    recoil : int
-        Number of recoil times (`recoil_count`).
+    samples : int
+        Number of sample times.
     width : int, optional
         The bath's lattice width (`ReducedState1D.lattice_range`), when already known.
 
     Returns
     -------
-    int
+    elements : int
         rows x sectors x width, with the rows thinned as `ReducedState1D` thins them; 0 in 3D or
         when the state does not fit (`ReducedState1D.fits`: sectors on every lattice point and
         2 sectors width <= STATE_ELEMENTS).
+    rows : int
+        The number of state times (0 when there is no state).
     """
     if bath.dimensions != 1:
-        return 0
+        return 0, 0
     if width is None:
         width = ReducedState1D.lattice_range(bath)[1]
     sectors = len(bath.sectors)
     if bath.stride != 1 or 2 * sectors * width > STATE_ELEMENTS:
-        return 0
-    stride = max(1, math.ceil(sectors * width * recoil / STATE_ELEMENTS))
-    rows = min(recoil, -(-recoil // stride) + 1)
-    return int(rows * sectors * width)
+        return 0, 0
+    rows = ReducedState1D.state_rows(samples, sectors, width).size
+    return int(rows * sectors * width), int(rows)
+
+
+def duhamel_nodes(sector, step: float) -> int:
+    """Duhamel quadrature nodes per sample step of a sector, from its energies alone.
+
+    q m with m = `duhamel_substeps` for the span of the level and mode energies widened by
+    twice the total coupling sqrt(sum |g|^2) (the eigenvalues lie within it: Weyl's
+    inequality); 0 where the Cauchy sums are used instead (q m >= bright modes).
+
+    Parameters
+    ----------
+    sector : Sector
+    step : float
+        Sample step h (time units).
+
+    Returns
+    -------
+    int
+        Nodes per step (dimensionless count).
+    """
+    energies = np.append(sector.mode_energies, sector.level_energy)
+    reach = 2 * math.sqrt(sector.coupling_sum)
+    span = np.array([energies.min() - reach, energies.max() + reach])
+    count = DUHAMEL_NODES * duhamel_substeps(span, step)
+    return count if count < np.unique(sector.mode_energies).size else 0
 
 
 def lamb_shift(scenario, bath: Bath) -> tuple[float, float]:
@@ -414,32 +409,36 @@ def lamb_shift(scenario, bath: Bath) -> tuple[float, float]:
 # --- 1D -----------------------------------------------------------------------------------------
 
 
-def _evolve_1d(scenario, bath: Bath, spectra, times, recoil, snaps) -> Evolution:
+def _evolve_1d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
     """1D sectors: population, momentum moments, density, and the reduced COM state."""
     packet = packet_for(scenario)
     excited = np.zeros(times.size)
-    moments = np.zeros((3, recoil.size))  # norm, <p>, <p^2>
-    snap_rows = np.searchsorted(recoil, snaps)
+    moments = np.zeros((times.size, 3))  # norm, <p>, <p^2>
     lattice_p, probability = [], []
-    state = ReducedState1D(bath, recoil) if ReducedState1D.fits(bath) else None
+    state = ReducedState1D(bath, times.size) if ReducedState1D.fits(bath) else None
+    rows = np.union1d(snaps, state.times if state is not None else [])
+    snap_rows, state_rows = np.searchsorted(rows, snaps), None
+    if state is not None:
+        state_rows = np.searchsorted(rows, state.times)
     for index, (sector, spectrum) in enumerate(zip(bath.sectors, spectra)):
         level = spectrum.level_amplitude(times)
-        excited += sector.weight * np.abs(level) ** 2
-        modes = spectrum.mode_amplitudes(times[recoil])
-        level_p, modes_p = np.abs(level[recoil]) ** 2, np.abs(modes) ** 2
+        level_p = np.abs(level) ** 2
+        excited += sector.weight * level_p
         p_after = sector.momentum - sector.quanta
-        moments += sector.weight * np.array([level_p + modes_p.sum(1),
-                                             level_p * sector.momentum + modes_p @ p_after,
-                                             level_p * sector.momentum ** 2 + modes_p @ p_after ** 2])
+        powers = p_after[:, None] ** np.arange(3)
+        ground, bright = spectrum.mode_series(times, powers, rows)
+        moments += sector.weight * (level_p[:, None] * sector.momentum ** np.arange(3) + ground)
+        modes = spectrum.modes_from_bright(bright)
         lattice_p.append(round(sector.momentum / bath.spacing) - sector.lattice)
-        probability.append(sector.weight * modes_p[snap_rows].T)
+        probability.append(sector.weight * np.abs(modes[snap_rows].T) ** 2)
         if state is not None:
-            state.add(index, sector, level[state.times], modes[state.rows])
-    mean = moments[1] / moments[0]
-    variance = moments[2] / moments[0] - mean ** 2
-    grid, density = lattice_density(scenario, bath, np.concatenate(lattice_p),
-                                     np.concatenate(probability))
-    warnings, x_var, purity, final, details = [], None, None, None, {}
+            state.add(index, sector, level[state.times], modes[state_rows])
+    norm = moments[:, 0]
+    mean = moments[:, 1] / norm
+    variance = moments[:, 2] / norm - mean ** 2
+    grid, density, density_notes = lattice_density(scenario, bath, np.concatenate(lattice_p),
+                                                   np.concatenate(probability))
+    warnings, x_var, purity, final, details = list(density_notes), None, None, None, {}
     if state is None:
         warnings.append("x_var, purity: not computed (the reduced state needs the sectors on "
                         f"every lattice point (stride here {bath.stride}) and at most "
@@ -450,54 +449,46 @@ def _evolve_1d(scenario, bath: Bath, spectra, times, recoil, snaps) -> Evolution
         x_var, purity = (masked(state.times, times.size, v) for v in (x_var, purity))
         final = state.final_qobj()
         details["final_state_lattice"] = [float(state.component_vectors(-1)[1][0]), bath.spacing]
-    return Evolution(excited=excited, p_mean=masked(recoil, times.size, mean),
-                     p_var=masked(recoil, times.size, variance), momentum_grid=grid,
+    return Evolution(excited=excited, p_mean=mean, p_var=variance, momentum_grid=grid,
                      snapshot_times=times[snaps], momentum_density=density,
                      initial_density=packet.axis_density(grid), x_var=x_var, purity=purity,
-                     norm=moments[0], final_state=final, warnings=warnings, details=details)
+                     norm=norm, final_state=final, warnings=warnings, details=details)
 
 
 # --- 3D -----------------------------------------------------------------------------------------
 
 
-def _evolve_3d(scenario, bath: Bath, spectra, times, recoil, snaps) -> Evolution:
+def _evolve_3d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
     """3D sectors: population, momentum moments along the packet axis and the axis density."""
     packet = packet_for(scenario)
     grid = axis_grid(scenario, packet, model_for(scenario))
     excited = np.zeros(times.size)
-    moments = np.zeros((3, recoil.size))
+    moments = np.zeros((times.size, 3))
     density = np.zeros((grid.size, snaps.size))
-    snap_rows = np.searchsorted(recoil, snaps)
     for sector, spectrum in zip(bath.sectors, spectra):
         level = spectrum.level_amplitude(times)
-        excited += sector.weight * np.abs(level) ** 2
-        bright = np.abs(spectrum.bright_mode_amplitudes(times[recoil])) ** 2
-        member = spectrum.modes.member_of
-        strength = np.abs(sector.couplings) ** 2
-        r, u = sector.momentum, sector.cosines
-
-        def per_bright(values):
-            return np.bincount(member, weights=strength * values, minlength=bright.shape[1])
-
-        along = per_bright(sector.quanta * u)  # sum |g|^2 k u
-        along2 = per_bright(sector.quanta_square * u * u)
-        across2 = per_bright(0.5 * sector.quanta_square * (1 - u * u))
+        level_p = np.abs(level) ** 2
+        excited += sector.weight * level_p
+        r, u, k = sector.momentum, sector.cosines, sector.quanta
+        # per mode: 1, k u, k^2 u^2 and k^2 (1 - u^2) / 2 (emission relative to P)
+        values = np.stack([np.ones_like(k), k * u, sector.quanta_square * u * u,
+                           0.5 * sector.quanta_square * (1 - u * u)], axis=1)
+        sums, bright = spectrum.mode_series(times, values, snaps)
+        ground, along, along2, across2 = sums.T
         cos1, cos2 = packet.direction_moments(r)
-        level_p = np.abs(level[recoil]) ** 2
-        ground = bright @ spectrum.modes.weights
-        moments += sector.weight * np.array([
+        moments += sector.weight * np.stack([
             level_p + ground,
-            cos1 * (level_p * r + r * ground - bright @ along),
-            cos2 * (level_p * r * r + r * r * ground - 2 * r * (bright @ along) + bright @ along2)
-            + (1 - cos2) * (bright @ across2)])
-        node_probability = strength[:, None] * bright[snap_rows][:, member].T
+            cos1 * (level_p * r + r * ground - along),
+            cos2 * (level_p * r * r + r * r * ground - 2 * r * along + along2)
+            + (1 - cos2) * across2], axis=1)
+        node_probability = np.abs(spectrum.modes_from_bright(bright).T) ** 2
         density += sector.weight * axis_density(grid, packet, sector, node_probability)
-    mean = moments[1] / moments[0]
-    variance = moments[2] / moments[0] - mean ** 2
+    norm = moments[:, 0]
+    mean = moments[:, 1] / norm
+    variance = moments[:, 2] / norm - mean ** 2
     initial = packet.axis_density(grid)
     # the sampled angles leave a histogram: smooth it over DENSITY_SMOOTHING grid cells
     density = gaussian_filter1d(density, DENSITY_SMOOTHING, axis=0, mode="constant")
-    return Evolution(excited=excited, p_mean=masked(recoil, times.size, mean),
-                     p_var=masked(recoil, times.size, variance), momentum_grid=grid,
+    return Evolution(excited=excited, p_mean=mean, p_var=variance, momentum_grid=grid,
                      snapshot_times=times[snaps], momentum_density=density,
-                     initial_density=initial, norm=moments[0])
+                     initial_density=initial, norm=norm)
