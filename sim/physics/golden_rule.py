@@ -61,6 +61,8 @@ from functools import lru_cache
 
 import numpy as np
 from scipy import constants as const
+from scipy.optimize import brentq
+from scipy.special import j0
 
 from .field import Field, field_for, packet_for
 from .models import EXCITED, GROUND, COMModel, level_of, model_for
@@ -149,8 +151,15 @@ class Process:
 
 EMISSION = Process(EXCITED, GROUND, +1)
 ABSORPTION = Process(GROUND, EXCITED, -1)
+#: the counter-rotating processes, dropped by the rotating-wave approximation: sigma+ a_k^dag
+#: excites while it emits, g(P) -> e(P - k) + k (x (1 + n)); sigma- a_k de-excites while it
+#: absorbs, e(P) + k -> g(P + k) (x n, so none in the vacuum)
+EXCITING_EMISSION = Process(GROUND, EXCITED, +1)
+QUENCHING_ABSORPTION = Process(EXCITED, GROUND, -1)
 #: the one-quantum process out of each internal level
 PROCESS_FROM = {EXCITED: EMISSION, GROUND: ABSORPTION}
+#: the counter-rotating one-quantum process out of each internal level
+COUNTER_PROCESS_FROM = {EXCITED: QUENCHING_ABSORPTION, GROUND: EXCITING_EMISSION}
 
 
 def process_for(internal: str) -> Process:
@@ -167,6 +176,79 @@ def process_for(internal: str) -> Process:
         EMISSION for "excited", ABSORPTION for "ground".
     """
     return PROCESS_FROM[level_of(internal)]
+
+
+def processes_out_of(level: int, rotating_wave: bool, thermal: bool = True) -> tuple[Process, ...]:
+    """The golden-rule one-quantum processes that leave an internal level.
+
+    Under the rotating-wave approximation only PROCESS_FROM[level] (emission out of e,
+    absorption out of g); without it also the counter-rotating COUNTER_PROCESS_FROM[level]
+    (g -> e + quantum, e + quantum -> g).  An absorbing process needs quanta: with
+    ``thermal = False`` (a vacuum field) it is left out, its rate being exactly zero.
+
+    Parameters
+    ----------
+    level : int
+        GROUND or EXCITED.
+    rotating_wave : bool
+        `coupling.rotating_wave`.
+    thermal : bool, optional
+        Whether the field holds quanta (field.temperature > 0).
+
+    Returns
+    -------
+    tuple of Process
+        The rotating process first (dimensionless labels; possibly empty).
+    """
+    candidates = (PROCESS_FROM[level],) + (() if rotating_wave else (COUNTER_PROCESS_FROM[level],))
+    return tuple(p for p in candidates if thermal or p.sign > 0)
+
+
+def anomalous_doppler_speed(model: COMModel, field: Field) -> float:
+    """Lowest detector speed at which g -> e + quantum conserves energy (counter-rotating).
+
+    A galilean detector's ground level at momentum P gives up E_g(P) - E_e(|P - k|) =
+    v k cos(k, P) - k^2 / 2M - Omega (v = P / M); the most it offers a quantum of |k| = k is
+    at cos = 1, phi(k) = v k - k^2 / 2M - Omega - w_k, concave in k.  The process is on shell
+    once max_k phi >= 0; at the threshold phi = phi' = 0, i.e.
+
+        k_t^2 / 2M - m^2 / w(k_t) = Omega,   v_t = k_t / M + k_t / w(k_t),
+
+    (massless field: k_t = sqrt(2 M Omega), v_t = 1 + sqrt(2 Omega / M), the recoil-corrected
+    anomalous-Doppler threshold).  A cutoff K < k_t leaves the on-shell |k| inside only from
+    phi(K) = 0: v_K = (Omega + K^2 / 2M + w_K) / K.  The relativistic models never qualify:
+    the invariant mass of the final e + quantum is at least M_e > M_g.
+
+    Parameters
+    ----------
+    model : COMModel
+    field : Field
+        Its mass m (energy units) and cutoff K (momentum units; may be inf).
+
+    Returns
+    -------
+    float
+        The threshold speed (units of c, > 1 for a galilean detector); inf when no speed makes
+        the process resonant (relativistic models).
+
+    References
+    ----------
+    Anomalous Doppler effect (emission with excitation by a source faster than the waves):
+    V. L. Ginzburg, Theoretical Physics and Astrophysics (Pergamon, 1979), ch. on
+    Vavilov-Cherenkov radiation (from memory); the recoil correction is derived here.
+    """
+    if model.name != "galilean":
+        return math.inf
+    mass, gap, m = model.ground_mass, model.gap, field.mass
+    if m == 0:
+        k_t = math.sqrt(2 * mass * gap)
+    else:
+        k_t = brentq(lambda k: k * k / (2 * mass) - m * m / math.hypot(k, m) - gap, 0.0,
+                     math.sqrt(2 * mass * (gap + m)), xtol=1e-300, rtol=4 * np.finfo(float).eps)
+    if field.cutoff < k_t:
+        cut = field.cutoff
+        return float((gap + cut * cut / (2 * mass) + math.hypot(cut, m)) / cut)
+    return float(k_t / mass + k_t / math.hypot(k_t, m))
 
 
 @dataclass(frozen=True)
@@ -600,13 +682,16 @@ def _moment_stack(density, k, u, s):
     return density * np.stack([np.ones_like(kick), kick, kick * kick, perp])
 
 
-def _k_picture(model, field, process, k, P):
-    """Integrand over |k| of the kick moments: (2 pi)^2 k |g|^2 N q* / (v_B(q*) P) x moments."""
+def _k_picture(model, field, process, k, P, stack=_moment_stack, extra=()):
+    """Integrand over |k| of the kick moments: (2 pi)^2 k |g|^2 N q* / (v_B(q*) P) x moments.
+
+    `stack(density, k, u, s, *extra)` gives the weighted quantities (default `_moment_stack`).
+    """
     final_energy = model.energy(process.initial, P) - process.sign * field.frequency(k)
     q = model.momentum(process.final, final_energy)
     density = (4 * np.pi ** 2 * k * coupling_density(model, field, process, k, P, q)
                * model.inertia(process.final, q) / P)
-    return _moment_stack(density, k, _cosine(model, field, process, P, k), process.sign)
+    return stack(density, k, _cosine(model, field, process, P, k), process.sign, *extra)
 
 
 def _on_shell_quantum(model, field, process, P, u, k):
@@ -627,10 +712,12 @@ def _on_shell_quantum(model, field, process, P, u, k):
     return k, q, -(k - s * P * u) / model.inertia(process.final, q) - s * k / field.frequency(k)
 
 
-def _angle_picture(model, field, process, u, P, k_a, k_b, u_a, u_b):
+def _angle_picture(model, field, process, u, P, k_a, k_b, u_a, u_b, stack=_moment_stack,
+                   extra=()):
     """Integrand over u = cos(k, P): (2 pi)^2 k^2 |g|^2 N / |df/dk|_u x moments at k(u).
 
-    Newton starts on the straight line through (u_a, k_a) and (u_b, k_b), the window's edges.
+    Newton starts on the straight line through (u_a, k_a) and (u_b, k_b), the window's edges;
+    `stack(density, k, u, s, *extra)` gives the weighted quantities (default `_moment_stack`).
     """
     span = u_b - u_a
     start = k_a + (k_b - k_a) * np.divide(u - u_a, span, out=np.zeros(np.broadcast(u, span).shape),
@@ -638,13 +725,13 @@ def _angle_picture(model, field, process, u, P, k_a, k_b, u_a, u_b):
     k, q, slope = _on_shell_quantum(model, field, process, P, u, start)
     density = 4 * np.pi ** 2 * k * k * coupling_density(model, field, process, k, P, q)
     density = density / np.abs(slope)
-    return _moment_stack(density, k, u, process.sign)
+    return stack(density, k, u, process.sign, *extra)
 
 
 def _window_integrals(integrand, a, b, args, rule):
     """Int_a^b integrand(x, *args) dx per window, by a Gauss-Legendre pair or adaptively.
 
-    integrand(x, *args) maps x of shape (w, n) and args of shape (w, 1) to (4, w, n); the finer
+    integrand(x, *args) maps x of shape (w, n) and args of shape (w, 1) to (m, w, n); the finer
     rule of `rule` is kept where every component agrees with the coarser one to QUAD_RTOL of
     the largest, else that window goes to scipy's ``quad_vec`` (relative tolerance QUAD_RTOL).
     """
@@ -733,30 +820,39 @@ def _windows_3d(model, field, process, P) -> _Windows:
     return _Windows(row, k_a, k_b, u_a, u_b, angle)
 
 
-def _rates_3d(model, field, process, P):
-    """(4, n) kick moments of each |P|: the windows of `_windows_3d`, each in its picture."""
+def _rates_3d(model, field, process, P, stack=_moment_stack, extra=(), count=4):
+    """(count, n) integrals of each |P|: the windows of `_windows_3d`, each in its picture.
+
+    `stack(density, k, u, s, *extra)` gives the `count` weighted quantities (default the four
+    kick moments of `_moment_stack`); `extra` are per-P arrays handed to it.
+    """
     w = _windows_3d(model, field, process, P)
-    totals = np.zeros((4, P.size))
+    totals = np.zeros((count, P.size))
+    extra = tuple(np.asarray(x, dtype=float) for x in extra)
     angle, plain = np.nonzero(w.angle)[0], np.nonzero(~w.angle)[0]
     if angle.size:
         a, b = np.minimum(w.u_a[angle], w.u_b[angle]), np.maximum(w.u_a[angle], w.u_b[angle])
 
         def over_u(u, *args):
-            return _angle_picture(model, field, process, u, *args)
+            return _angle_picture(model, field, process, u, *args[:5], stack=stack,
+                                  extra=args[5:])
 
-        values = _window_integrals(over_u, a, b, (P[w.row[angle]], w.k_a[angle], w.k_b[angle],
-                                                  w.u_a[angle], w.u_b[angle]), ANGLE_RULE)
-        for m in range(4):
-            totals[m] += np.bincount(w.row[angle], values[m], minlength=P.size)
+        rows = w.row[angle]
+        values = _window_integrals(over_u, a, b, (P[rows], w.k_a[angle], w.k_b[angle],
+                                                  w.u_a[angle], w.u_b[angle],
+                                                  *(x[rows] for x in extra)), ANGLE_RULE)
+        for m in range(count):
+            totals[m] += np.bincount(rows, values[m], minlength=P.size)
     if plain.size:
         a, b = np.minimum(w.k_a[plain], w.k_b[plain]), np.maximum(w.k_a[plain], w.k_b[plain])
 
-        def over_k(k, p):
-            return _k_picture(model, field, process, k, p)
+        def over_k(k, p, *args):
+            return _k_picture(model, field, process, k, p, stack=stack, extra=args)
 
-        values = _window_integrals(over_k, a, b, (P[w.row[plain]],), K_RULE)
-        for m in range(4):
-            totals[m] += np.bincount(w.row[plain], values[m], minlength=P.size)
+        rows = w.row[plain]
+        values = _window_integrals(over_k, a, b, (P[rows], *(x[rows] for x in extra)), K_RULE)
+        for m in range(count):
+            totals[m] += np.bincount(rows, values[m], minlength=P.size)
     return totals
 
 
@@ -801,6 +897,66 @@ def kick_moments(model: COMModel, field: Field, process: Process, P) -> KickMome
     return KickMoments(*(t.reshape(p.shape) for t in totals))
 
 
+def _phase_stack(density, k, u, s, cosine, separation):
+    """density x (Re, Im) of the azimuthal average of exp(i dq_axis d), dq = -s k n.
+
+    With n at cos(n, P) = u and the axis at angle a to P, dq_axis = -s k (u cos a +
+    sqrt(1 - u^2) sin a cos phi); averaging exp(i dq_axis d) over the azimuth phi gives
+    exp(-i s k u d cos a) J0(k d sqrt(1 - u^2) sin a).
+    """
+    phase = -s * k * u * cosine * separation
+    sine = np.sqrt(np.maximum(0.0, 1.0 - cosine * cosine))
+    bessel = j0(k * separation * sine * np.sqrt(np.maximum(0.0, (1 - u) * (1 + u))))
+    return density * np.stack([np.cos(phase) * bessel, np.sin(phase) * bessel])
+
+
+def kick_characteristic(model: COMModel, field: Field, process: Process, P, separation: float,
+                        cosine=1.0):
+    """Int dGamma exp(i dq_axis d): the golden-rule rate weighted by the kick's phase at d.
+
+    A transition kicks the COM by dq = q - P (= -s k); the operator exp(i P_axis d) then gains
+    the factor exp(i dq_axis d).  1D (P signed, the axis the line itself): the sum over the
+    channels of `channel_table`, Sum rate exp(i kick d).  3D: the kick-moment integral of
+    `kick_moments` weighted by the azimuthal average about P of exp(i dq_axis d),
+    exp(-i s k u d cos a) J0(k d sin a sqrt(1 - u^2)), u = cos(k, P), a the angle between P
+    and the packet axis.  Divided by the rate it is the mean phase <exp(i dq_axis d)> of one
+    transition (a static detector's emission: cos(k* d) in 1D, sin(k* d) / (k* d) in 3D).
+
+    Parameters
+    ----------
+    model : COMModel
+    field : Field
+    process : Process
+    P : array_like
+        Initial COM momenta (momentum units): signed in 1D, magnitudes in 3D.
+    separation : float
+        d along the packet axis (length units).
+    cosine : float or array_like, optional
+        3D only: cos a between P and the packet axis, broadcast with P (dimensionless).
+
+    Returns
+    -------
+    numpy.ndarray of complex
+        The shape of P (inverse time units).
+
+    References
+    ----------
+    Fermi's golden rule, e.g. J. J. Sakurai and J. Napolitano, Modern Quantum Mechanics, 2nd ed.
+    (Addison-Wesley, 2011); the azimuthal average int dphi exp(i x cos phi) / 2 pi = J0(x):
+    Abramowitz & Stegun, Handbook of Mathematical Functions (1964), eq. 9.1.18.
+    """
+    p = np.atleast_1d(np.asarray(P, dtype=float))
+    flat = p.ravel()
+    if field.dimensions == 1:
+        table = channel_table(model, field, process, flat)
+        phases = np.exp(1j * np.nan_to_num(table.kick) * separation)
+        return (table.rate * phases).sum(axis=1).reshape(p.shape)
+    cos_a = np.broadcast_to(np.asarray(cosine, dtype=float), p.shape).ravel()
+    parts = _rates_3d(model, field, process, np.abs(flat), stack=_phase_stack,
+                      extra=(cos_a, np.full(flat.size, float(separation))), count=2)
+    return (parts[0] + 1j * parts[1]).reshape(p.shape)
+
+
 def transition_rate(model: COMModel, field: Field, process: Process, P):
     """Gamma(P) for one process (inverse time units).
 
@@ -831,7 +987,9 @@ def template_rate(scenario, p, model: str | None = None):
     """Template function Gamma(p) of the scenario at momentum magnitude(s) p along the packet axis.
 
     Emission rate (with 1 + n in a thermal field) for an excited packet, absorption (excitation)
-    rate for a ground-state packet.  `model` evaluates another COM model with the same parameters.
+    rate for a ground-state packet; with coupling.rotating_wave = false plus the counter-rotating
+    process out of the same level (`processes_out_of`: g -> e + quantum, e + quantum -> g).
+    `model` evaluates another COM model with the same parameters.
 
     Gamma(p) = 2 pi Int d^dk |g(k)|^2 N(w_k) delta(E_A(p) - E_B(|p - s k|) - s w_k), with no
     cutoff unless the scenario gives one.
@@ -854,9 +1012,11 @@ def template_rate(scenario, p, model: str | None = None):
     Fermi's golden rule (standard first-order time-dependent perturbation theory), e.g.
     J. J. Sakurai and J. Napolitano, Modern Quantum Mechanics, 2nd ed. (Addison-Wesley, 2011).
     """
-    process = process_for(scenario.packet.internal)
-    return transition_rate(model_for(scenario, model), field_for(scenario), process,
-                           np.abs(np.asarray(p, dtype=float)))
+    com, field = model_for(scenario, model), field_for(scenario)
+    momenta = np.abs(np.asarray(p, dtype=float))
+    processes = processes_out_of(level_of(scenario.packet.internal),
+                                 scenario.coupling.rotating_wave)
+    return sum(transition_rate(com, field, process, momenta) for process in processes)
 
 
 def packet_rule(packet, nodes: int) -> tuple[np.ndarray, np.ndarray]:

@@ -9,9 +9,9 @@ import numpy as np
 
 from ..config.schema import Scenario
 from ..errors import ScenarioError
-from ..physics.field import packet_for
-from ..physics.golden_rule import packet_rate
-from ..physics.models import EXCITED, GROUND, COMModel
+from ..physics.field import field_for, packet_for
+from ..physics.golden_rule import anomalous_doppler_speed, packet_rate
+from ..physics.models import EXCITED, GROUND, COMModel, model_for
 from ..physics.packet import Packet
 
 #: automatic t_max: this many golden-rule lifetimes
@@ -375,8 +375,10 @@ def physics_warnings(scenario: Scenario, rate: float) -> list[str]:
 
     A large perturbation parameter Gamma / Omega (above WEAK_COUPLING_LIMIT, Omega the
     detector gap), and the rotating-wave approximation where counter-rotating terms are
-    resonant (a galilean packet reaching |v| = `galilean_reach_speed` > 1: anomalous Doppler
-    emission).
+    resonant: a packet reaching |v| = `galilean_reach_speed` above the recoil-corrected
+    anomalous-Doppler threshold v_t (`sim.physics.golden_rule.anomalous_doppler_speed`;
+    v_t = 1 + sqrt(2 Omega / M_g) for a massless field, inf for the relativistic models), where
+    g -> e + quantum conserves energy.
 
     Parameters
     ----------
@@ -396,10 +398,14 @@ def physics_warnings(scenario: Scenario, rate: float) -> list[str]:
                    f"{WEAK_COUPLING_LIMIT:g}): golden-rule and Markov predictions are unreliable here; lower "
                    "coupling.strength (or raise coupling.lifetime), or use run.method = \"exact\" "
                    "or \"fock\"")
+    if not scenario.coupling.rotating_wave:
+        return out
+    threshold = anomalous_doppler_speed(model_for(scenario), field_for(scenario))
     fastest = galilean_reach_speed(scenario, packet_for(scenario))
-    if scenario.detector.model == "galilean" and scenario.coupling.rotating_wave and fastest > 1:
-        out.append(f"rotating-wave approximation with a galilean detector reaching |v| = "
-                   f"{fastest:.3g} > 1: counter-rotating terms are resonant there (anomalous Doppler "
-                   "emission) and are dropped; use run.method = \"fock\" with "
-                   "coupling.rotating_wave = false")
+    if fastest > threshold:
+        out.append(f"rotating-wave approximation with a {scenario.detector.model} detector "
+                   f"reaching |v| = {fastest:.3g}, above the anomalous-Doppler threshold "
+                   f"{threshold:.4g}: counter-rotating terms are resonant there (excitation with "
+                   "emission, g -> e + quantum) and are dropped; set coupling.rotating_wave = "
+                   "false (methods \"perturbative\" and \"fock\" keep them)")
     return out

@@ -153,8 +153,9 @@ def test_command_line_process_prints_no_traceback(make_scenario, write_scenario,
 WARNING_CASES = {
     # Gamma / Omega large: strength 2 in 1D gives Gamma = lambda^2 / Omega-ish >> 0.05 Omega
     "perturbation parameter": dict(strength=0.6, t_max=10.0, samples=201),
-    # a galilean detector at v = p / M = 1.5 under the RWA
-    "rotating-wave approximation": dict(ground_mass=1.0, momentum=1.5, width=50.0, t_max=50.0),
+    # a galilean detector at v = p / M = 2.5 under the RWA, above the anomalous-Doppler threshold
+    # 1 + sqrt(2 Omega / M) = 2 of this gap-0.5, mass-1 detector
+    "rotating-wave approximation": dict(ground_mass=1.0, momentum=2.5, width=50.0, t_max=50.0),
     # a 1D box shorter than the distance the emitted wave travels by t_max
     "bath recurrence before t_max": dict(method="exact", field__mass=0.05, bath__box_length=60.0,
                                          width=5.0),
