@@ -150,6 +150,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "angular_nodes": _count(2, MAX_NODES),
         "sectors": _count(1, MAX_NODES),
         "fock_modes": _count(1, MAX_FOCK),
+        "directions": _count(2, MAX_NODES),
         "max_occupation": _count(1, MAX_FOCK),
         "max_quanta": _count(1, MAX_FOCK),
     },
@@ -393,6 +394,9 @@ class BathConfig:
         Number of packet momentum sectors P solved.
     fock_modes : int, optional
         fock method: number of field modes in the Fock space.
+    directions : int, optional
+        fock method, 3D: order n of the emission-direction rule (n Gauss-Legendre nodes in
+        cos(theta) times 2n azimuths); None: the six octahedral directions.
     max_occupation : int, optional
         fock method: largest occupation of one mode.
     max_quanta : int, optional
@@ -406,6 +410,7 @@ class BathConfig:
     angular_nodes: int | None = None
     sectors: int | None = None
     fock_modes: int | None = None
+    directions: int | None = None
     max_occupation: int | None = None
     max_quanta: int | None = None
 

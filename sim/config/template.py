@@ -70,6 +70,8 @@ MEANINGS: dict[str, str] = {
                           "axis (one collective mode per node)",
     "bath.sectors": "number of packet momentum sectors P solved (quadrature over the packet)",
     "bath.fock_modes": "fock method: number of field modes in the Fock space",
+    "bath.directions": "fock method, 3D: order n of the emission-direction rule (n nodes in "
+                       "cos(theta) x 2n azimuths); omitted: the six octahedral directions",
     "bath.max_occupation": "fock method: largest occupation of one mode",
     "bath.max_quanta": "fock method: largest total number of quanta",
     "grid.points": "markov method: points of the COM momentum lattice",
@@ -100,6 +102,7 @@ EXAMPLES: dict[str, object] = {
     "bath.angular_nodes": 16,
     "bath.sectors": 32,
     "bath.fock_modes": 6,
+    "bath.directions": 3,
     "bath.max_occupation": 2,
     "bath.max_quanta": 2,
     "grid.points": 201,

@@ -118,8 +118,16 @@ class TwoLobeSolver:
         self.scenario = scenario
 
 
+class GaussianOnlySolver(TwoLobeSolver):
+    """A stand-in solver that declares no shapes (gaussian only, the default)."""
+
+    packet_shapes = ("gaussian",)
+
+
 def test_a_method_without_the_shape_refuses_it_and_names_those_with_it(monkeypatch):
     raw = build_scenario(KEYS, packet__shape="two-lobe", packet__separation=8.5)
+    for name in METHODS:
+        monkeypatch.setitem(METHODS, name, f"{__name__}:GaussianOnlySolver")
     with pytest.raises(ScenarioError) as info:
         solver_for(raw)
     assert str(info.value) == ('packet.shape = "two-lobe": method "perturbative" evolves only '

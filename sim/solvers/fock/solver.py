@@ -29,17 +29,24 @@ Baths:
   strongly coupled to the first transition out of the initial state, ranked by
   |g_j|^2 / (D_j^2 + (2 pi / L)^2) with D_j its energy mismatch (the weight of mode j in
   second-order perturbation theory, regularised by the mode spacing).
-- 3D: 6 directions (the octahedron +-e1, +-e2, +-e3 with e3 the packet axis: a spherical
-  3-design, weight 4 pi / 6 each; common practice) times R = ceil(fock_modes / 6)
-  Gauss-Legendre nodes in |k| on [0, cutoff] with weights W_r k_r^2.  A crude few-mode bath: it
-  models, it does not converge to, the 3D continuum.
+- 3D: the directions of `basis.direction_rule` (the octahedron +-e1, +-e2, +-e3 with e3 the
+  packet axis, a spherical 3-design, by default; with bath.directions = n the product of n
+  Gauss-Legendre nodes in cos(theta) and 2n azimuths, exact to spherical-harmonic degree
+  2n - 1) times R = ceil(fock_modes / D) Gauss-Legendre nodes in |k| on [0, cutoff] with
+  weights W_r k_r^2.  A few-mode bath: it models the 3D continuum and approaches it only as
+  both rules grow (`FockSolver.convergence` measures the change).
 
-Packet: one sector per packet momentum P with weight |psi(P)|^2.  1D: the exact solver's
-lattice sectors (`sim.solvers.exact.baths.sector_lattice`), thinned to at most `bath.sectors`
-(default MAX_DEFAULT_SECTORS); 3D: `bath.sectors` (default 3) Gauss-Hermite nodes of the axial
-marginal (`Packet.quadrature(along_axis=True)`), on the axis (the transverse spread of the
-packet is neglected).  Each sector is evolved from |level0, P; vac> by qutip.sesolve; all
-observables are diagonal in the basis and are read off |psi|^2.
+Packet: one sector per packet momentum P with weight |psi(P)|^2.  1D Gaussian: the exact
+solver's lattice sectors (`sim.solvers.exact.baths.sector_lattice`), thinned to at most
+`bath.sectors` (default MAX_DEFAULT_SECTORS, more when the coherence at d needs them); other 1D
+shapes: `Packet.axial_quadrature` (fringe-resolving for two lobes).  3D: `bath.sectors`
+(default DEFAULT_SECTORS_3D, more for a Gaussian when the coherence needs them, and
+SHAPED_AXIAL_NODES for the other shapes) axial nodes of
+`Packet.axial_quadrature`, each at the TRANSVERSE_SECTORS transverse magnitudes of a
+Gauss-Laguerre rule (`basis.sector_grid_3d`): the transverse spread is included, exactly for
+observables polynomial of degree 2 TRANSVERSE_SECTORS - 1 in |p_perp|^2.  Each sector is evolved from |level0, P; vac> by
+qutip.sesolve; all observables are diagonal in the basis and are read off |psi|^2, the
+coherence chi(t) = sum_P w_P sum_s |psi_s|^2 exp(i p_s.axis d) too (exp(i P d) is diagonal).
 
 Units: hbar = c = 1; energies and momenta in the energy unit, times and lengths in its inverse.
 
@@ -58,9 +65,12 @@ import qutip
 
 from ...errors import ResourceError, ScenarioError
 from ...physics.checks import with_keys
+from ...physics.coherence import coherence_distance
 from ...physics.field import field_for, packet_for
+from ...physics.golden_rule import EMISSION
 from ...physics.models import EXCITED, GROUND, level_of, model_for
-from ..base import SAMPLE_BYTES, Estimate, Evolution, Solver
+from ..base import SAMPLE_BYTES, Estimate, Evolution, Solver, check_resources
+from ..markov.lattice import direction_table
 from ..common import (
     bin_index,
     box_return_time,
@@ -71,18 +81,23 @@ from ..common import (
     snapshot_indices,
 )
 from .basis import (
-    DIRECTIONS_3D,
+    SHAPED_AXIAL_NODES,
     FockBasis,
     FockPlan,
     allowed_level,
+    axis_frame,
+    coherent_sector_count,
     com_momenta,
+    direction_degree,
+    direction_rule,
     fock_basis,
+    hermite_nodes_for,
     lattice_modes,
     link_count,
-    octahedral_modes,
     sector_grid_1d,
     sector_grid_3d,
     sector_hamiltonian,
+    sphere_modes,
     state_count,
     truncation_edge,
 )
@@ -91,8 +106,23 @@ from .references import rotating_wave_excited, second_order_transition, transiti
 
 #: default number of 1D box modes kept (the box may hold fewer)
 DEFAULT_FOCK_MODES_1D = 24
-#: default number of |k| nodes of the 3D bath (6 directions each)
-DEFAULT_RADIAL_NODES_3D = 4
+#: default number of 3D modes (the octahedron's 6 directions x 4 |k| nodes)
+DEFAULT_FOCK_MODES_3D = 24
+#: the key of the 3D direction rule (`basis.direction_rule`): Gauss-Legendre nodes in cos(theta)
+DIRECTIONS_KEY = "bath.directions"
+#: the direction rule `convergence` moves to from the octahedron (degree 3): the product rule of
+#: order 3 (degree 5, 18 directions)
+FIRST_PRODUCT_ORDER = 3
+#: `convergence`: the tolerance of its verdict, and the growth of bath.fock_modes it tries
+CONVERGENCE_TOLERANCE = 1e-3
+MODE_GROWTH = 1.5
+#: `decay_rate`: the samples fitted have P_e in this range (above: the short-time quadratic
+#: start; below: the tail), at least MIN_RATE_SAMPLES of them
+RATE_WINDOW = (0.02, 0.9)
+MIN_RATE_SAMPLES = 3
+#: axis-momentum bins per pi / d when the coherence at d is asked for (3D grid; the 1D box
+#: lattice is checked against it): fringes of period 2 pi / d get 2 FRINGE_BINS bins each
+FRINGE_BINS = 4
 #: default total-quanta cutoff with counter-rotating terms: two rounds of virtual pair creation
 DEFAULT_MAX_QUANTA = 4
 #: default box length: this margin times the time the emitted wave needs to come back, (1 + v) t_max
@@ -137,6 +167,8 @@ class SectorRun:
         Probability on the truncation edge (`truncation_edge`; dimensionless).
     ground_bins : ndarray, shape (T, G)
         Ground-state probability in each cell of the axis-momentum grid (dimensionless).
+    chi : ndarray of complex, shape (T,), or None
+        sum_s |psi_s|^2 exp(i p_s.axis d), both levels (dimensionless); None without a d.
     """
 
     excited: np.ndarray
@@ -146,15 +178,17 @@ class SectorRun:
     p_axis_sq: np.ndarray
     edge: np.ndarray
     ground_bins: np.ndarray  # (times, bins)
+    chi: np.ndarray | None = None
 
 
 def evolve_sector(model, plan: FockPlan, basis: FockBasis, total_momentum, times, grid,
-                  progress: bool = False) -> SectorRun:
+                  separation: float | None = None, progress: bool = False) -> SectorRun:
     """Evolve |level0, P; vac> by qutip.sesolve and read the diagonal observables off |psi|^2.
 
     i d psi/dt = H psi with H the sector Hamiltonian (`sector_hamiltonian`); every observable is
-    diagonal in the Fock basis, so <O>(t) = sum_s O_s |psi_s(t)|^2.  Ground-state probabilities
-    are summed in the cells of the axis-momentum `grid` (`bin_index`).
+    diagonal in the Fock basis, so <O>(t) = sum_s O_s |psi_s(t)|^2, the characteristic function
+    chi(t) = sum_s |psi_s|^2 exp(i p_s d) (p_s = (P - sum n k).axis) included.  Ground-state
+    probabilities are summed in the cells of the axis-momentum `grid` (`bin_index`).
 
     Parameters
     ----------
@@ -167,6 +201,8 @@ def evolve_sector(model, plan: FockPlan, basis: FockBasis, total_momentum, times
         Sample times (time units).
     grid : ndarray, shape (G,)
         Axis-momentum grid (momentum units, `momentum_grid`).
+    separation : float, optional
+        d of the coherence (length units); None: chi is not computed.
     progress : bool, optional
         Show sesolve's progress bar.
 
@@ -181,8 +217,11 @@ def evolve_sector(model, plan: FockPlan, basis: FockBasis, total_momentum, times
     hamiltonian = sector_hamiltonian(model, plan, basis, total_momentum)
     p_axis = com_momenta(basis, plan.modes, total_momentum) @ plan.axis
     edge = truncation_edge(plan, basis)
+    phases = [] if separation is None else [np.cos(p_axis * separation),
+                                            np.sin(p_axis * separation)]
     columns = np.stack([basis.levels == EXCITED, np.ones(len(p_axis)), basis.quanta, p_axis,
-                        p_axis ** 2, edge], axis=1).astype(float)
+                        p_axis ** 2, edge, *phases], axis=1).astype(float)
+    width = columns.shape[1]
     ground = basis.levels == GROUND
     ground_bins, count = bin_index(grid, p_axis[ground]), len(grid)
 
@@ -195,7 +234,8 @@ def evolve_sector(model, plan: FockPlan, basis: FockBasis, total_momentum, times
     options = {**ODE_OPTIONS, "progress_bar": "tqdm" if progress else ""}
     result = qutip.sesolve(qutip.Qobj(hamiltonian), start, times, e_ops=[observe], options=options)
     data = np.asarray(result.expect[0], dtype=float)
-    return SectorRun(*data[:, :6].T, ground_bins=data[:, 6:])
+    chi = None if separation is None else data[:, 6] + 1j * data[:, 7]
+    return SectorRun(*data[:, :6].T, ground_bins=data[:, width:], chi=chi)
 
 
 class FockSolver(Solver):
@@ -218,6 +258,7 @@ class FockSolver(Solver):
     """
 
     name = "fock"
+    packet_shapes = ("gaussian", "two-lobe", "file")
 
     @cached_property
     def model(self):
@@ -235,11 +276,14 @@ class FockSolver(Solver):
 
         1D: a box of length bath.box_length or `fock_box_length`, sectors from
         `sector_grid_1d`, the bath.fock_modes (default DEFAULT_FOCK_MODES_1D) box modes most
-        strongly coupled at the most probable sector (`lattice_modes`).  3D: `octahedral_modes`
-        with ceil(fock_modes / 6) (default DEFAULT_RADIAL_NODES_3D) radial nodes, bath.sectors
-        (default DEFAULT_SECTORS_3D) axial Gauss-Hermite sectors.  max_quanta =
-        bath.max_quanta, default 1 under the RWA and DEFAULT_MAX_QUANTA otherwise;
-        max_occupation = bath.max_occupation, default max_quanta.
+        strongly coupled at the most probable sector (`lattice_modes`).  3D: `sphere_modes`
+        with the direction rule of DIRECTIONS_KEY (default: the octahedron) and
+        ceil(fock_modes / D) radial nodes (fock_modes default DEFAULT_FOCK_MODES_3D), sectors
+        from `sector_grid_3d` with bath.sectors axial nodes (default DEFAULT_SECTORS_3D, or
+        `hermite_nodes_for` sigma_p d for a Gaussian when the coherence at d is asked for;
+        SHAPED_AXIAL_NODES for the other shapes).
+        max_quanta = bath.max_quanta, default 1 under the RWA and DEFAULT_MAX_QUANTA
+        otherwise; max_occupation = bath.max_occupation, default max_quanta.
 
         Returns
         -------
@@ -258,21 +302,29 @@ class FockSolver(Solver):
         field, packet, bath = field_for(s, model), packet_for(s), s.bath
         start = level_of(s.packet.internal)
         axis = np.asarray(s.packet_axis, dtype=float)
+        distance = coherence_distance(s)
+        separation = None if distance is None else float(distance[0])
+        order = None
         if s.dimensions == 1:
             length = bath.box_length or fock_box_length(s, model)
-            sectors, weights = sector_grid_1d(s, 2 * np.pi / length, bath.sectors)
+            sectors, weights = sector_grid_1d(s, 2 * np.pi / length, bath.sectors, separation)
             centre = sectors[np.argmax(weights)]
             modes = lattice_modes(field, model, length, bath.fock_modes or DEFAULT_FOCK_MODES_1D,
                                   centre, start)
         else:
-            radial = (math.ceil(bath.fock_modes / DIRECTIONS_3D) if bath.fock_modes
-                      else DEFAULT_RADIAL_NODES_3D)
-            modes = octahedral_modes(field, axis, radial)
-            sectors, weights = sector_grid_3d(packet, axis, bath.sectors or DEFAULT_SECTORS_3D)
+            order = getattr(bath, DIRECTIONS_KEY.split(".")[1])
+            count = len(direction_rule(order)[1])
+            modes = sphere_modes(field, axis, order,
+                                 math.ceil((bath.fock_modes or DEFAULT_FOCK_MODES_3D) / count))
+            axial = bath.sectors or (DEFAULT_SECTORS_3D if packet.shape == "gaussian"
+                                     else SHAPED_AXIAL_NODES)
+            if bath.sectors is None and separation and packet.shape == "gaussian":
+                axial = max(axial, hermite_nodes_for(packet.momentum_std * separation))
+            sectors, weights = sector_grid_3d(packet, axis, axial)
         rwa = s.coupling.rotating_wave
         max_quanta = bath.max_quanta or (1 if rwa else DEFAULT_MAX_QUANTA)
         return FockPlan(modes, sectors, weights, axis, start, rwa,
-                        bath.max_occupation or max_quanta, max_quanta)
+                        bath.max_occupation or max_quanta, max_quanta, order, separation)
 
     def estimate(self) -> Estimate:
         """States of one sector (exact count), memory and wall time of the run, rough flops.
@@ -350,7 +402,10 @@ class FockSolver(Solver):
             P_e(t), norm (dimensionless); <p>, Var p along the axis (momentum units, momentum^2);
             ground-state densities at the snapshot times and the initial density (1 / momentum
             units); lamb_shift (energy units); the table "field" (t, mean quanta) and, without the
-            RWA, "counter_rotating".  No x variance or purity.
+            RWA, "counter_rotating"; coherence chi(t) = sum_P w_P chi_P(t) when a coherence
+            distance is set (`coherence_distance`), else None; details with "truncation"
+            (`truncation`) and in 3D the direction rule (directions, direction_degree,
+            radial_nodes).  No x variance or purity; `convergence` adds its record on request.
 
         Raises
         ------
@@ -374,8 +429,8 @@ class FockSolver(Solver):
                                 f"{MAX_SECTOR_STATES:,} states; lower {', '.join(SIZE_KEYS)}")
         basis = fock_basis(plan)
         grid, width = momentum_grid(plan, basis)
-        runs = [evolve_sector(model, plan, basis, P, times, grid, self.progress)
-                for P in plan.sector_momenta]
+        runs = [evolve_sector(model, plan, basis, P, times, grid, plan.separation,
+                              self.progress) for P in plan.sector_momenta]
         w = plan.sector_weights
 
         def total(name):
@@ -386,9 +441,21 @@ class FockSolver(Solver):
         initial = np.zeros(len(grid))
         np.add.at(initial, bin_index(grid, plan.sector_momenta @ plan.axis), w / width)
         tables = {"field": {"t": times, "quanta": quanta}}
-        warnings = self._warnings(times, total("edge"))
+        warnings = self._warnings(times, total("edge"), width)
         if not plan.rotating_wave:
             tables["counter_rotating"] = self._references(times, excited)
+        details = {"fock_modes": plan.modes.count, "box_modes": plan.modes.available,
+                   "box_length": plan.modes.box_length, "max_quanta": plan.max_quanta,
+                   "max_occupation": plan.max_occupation, "sectors": len(w),
+                   "states_per_sector": len(basis.levels),
+                   "norm_drift": float(np.max(np.abs(total("norm") - 1.0))),
+                   "truncation_edge_max": float(np.max(total("edge"))),
+                   "truncation": self.truncation()}
+        if plan.modes.box_length is None:
+            details.update(directions=len(direction_rule(plan.direction_order)[1]),
+                           direction_degree=direction_degree(plan.direction_order),
+                           radial_nodes=plan.modes.count // len(direction_rule(
+                               plan.direction_order)[1]))
         return Evolution(
             excited=excited, p_mean=p_mean, p_var=total("p_axis_sq") - p_mean ** 2,
             momentum_grid=grid, snapshot_times=times[snaps],
@@ -396,12 +463,151 @@ class FockSolver(Solver):
             norm=total("norm"), tables=tables, warnings=warnings,
             lamb_shift=float(sum(weight * transition_shift(model, plan.modes, P, plan.rotating_wave)
                                  for weight, P in zip(w, plan.sector_momenta))),
-            details={"fock_modes": plan.modes.count, "box_modes": plan.modes.available,
-                     "box_length": plan.modes.box_length, "max_quanta": plan.max_quanta,
-                     "max_occupation": plan.max_occupation, "sectors": len(w),
-                     "states_per_sector": len(basis.levels),
-                     "norm_drift": float(np.max(np.abs(total("norm") - 1.0))),
-                     "truncation_edge_max": float(np.max(total("edge")))})
+            details=details,
+            coherence=None if plan.separation is None else total("chi"))
+
+    def truncation(self) -> dict:
+        """The bath truncation of the run, for the result layer to flag in 1D and 3D alike.
+
+        "kept" is the number of modes M; "of" is the number of modes of the box bath the
+        truncated one stands for: in 1D the box modes within the cutoff; in 3D those of a cubic
+        periodic box of side L = `fock_box_length` (the emitted wave returns just after t_max,
+        as the 1D default box), |k| <= cutoff, counted by the ball's volume
+        (4 pi / 3) (K L / (2 pi))^3 (to within its surface term): what a box bath resolving
+        the 3D continuum up to t_max would hold.  "converged" is None until `convergence` has
+        judged it.
+
+        Returns
+        -------
+        dict
+            {"kept": M, "of": m, "what": "modes", "converged": None, "key": "bath.fock_modes"}.
+        """
+        modes = self.plan.modes
+        if modes.box_length is not None:
+            available = modes.available
+        else:
+            side = fock_box_length(self.scenario, self.model)
+            cutoff = field_for(self.scenario, self.model).cutoff
+            available = max(modes.count, round(4 * np.pi / 3 * (cutoff * side / (2 * np.pi)) ** 3))
+        return {"kept": modes.count, "of": int(available), "what": "modes", "converged": None,
+                "key": "bath.fock_modes"}
+
+    def refinements(self) -> list[tuple[str, list, dict | None, str | None]]:
+        """The finer runs `convergence` compares with: one more quantum, more modes, more
+        directions (3D).
+
+        One more quantum: bath.max_quanta + 1 (max_occupation too where it equals max_quanta);
+        none under the RWA, whose excitation-number sector is complete.  More modes:
+        bath.fock_modes x MODE_GROWTH (rounded up; in 1D at most the box's modes, none when all
+        are kept).  More directions (3D): the octahedron -> the product rule of order
+        FIRST_PRODUCT_ORDER, order n -> n + 1, with the same radial nodes.
+
+        Returns
+        -------
+        list of (key, values, changes, reason)
+            The key refined, its [old, new] values, the scenario keys to change (None when
+            the refinement does not apply) and why it does not (None when it does).
+        """
+        plan, out = self.plan, []
+        if plan.rotating_wave:
+            out.append(("bath.max_quanta", [plan.max_quanta, plan.max_quanta], None,
+                        "under the rotating-wave approximation the excitation-number sector is "
+                        "complete: more quanta add no reachable state"))
+        else:
+            keys = {"bath.max_quanta": plan.max_quanta + 1}
+            if plan.max_occupation >= plan.max_quanta:
+                keys["bath.max_occupation"] = plan.max_occupation + 1
+            out.append(("bath.max_quanta", [plan.max_quanta, plan.max_quanta + 1], keys, None))
+        count, modes = plan.modes.count, math.ceil(MODE_GROWTH * plan.modes.count)
+        if plan.modes.box_length is not None:
+            modes = min(modes, plan.modes.available)
+        if modes > count:
+            out.append(("bath.fock_modes", [count, modes], {"bath.fock_modes": modes}, None))
+        else:
+            out.append(("bath.fock_modes", [count, count], None,
+                        f"all {count} box modes within the cutoff are kept; bath.box_length and "
+                        "field.cutoff set the bath"))
+        if plan.modes.box_length is None:
+            order = plan.direction_order
+            finer = FIRST_PRODUCT_ORDER if order is None else order + 1
+            radial = count // len(direction_rule(order)[1])
+            out.append((DIRECTIONS_KEY, [order, finer],
+                        {DIRECTIONS_KEY: finer,
+                         "bath.fock_modes": radial * len(direction_rule(finer)[1])}, None))
+        return out
+
+    def convergence(self, times, evolution: Evolution | None = None,
+                    tolerance: float = CONVERGENCE_TOLERANCE) -> dict:
+        """Change of P_e and of the decay rates on each refinement of the truncation (opt-in).
+
+        Each finer run of `refinements` is evolved over the same `times` and compared with this
+        one: max_t |P_e'(t) - P_e(t)|, the decay rates of `decay_rate` (relative change
+        |G' - G| / |G'|) and in 3D, for the directions, the golden-rule rate on the direction
+        rule (`direction_golden_rate`).  A finer run over MAX_SECTOR_STATES states or the
+        memory guard is not run and says so.  Each costs a run at least as large as this one.
+
+        Parameters
+        ----------
+        times : ndarray
+            Sample times, increasing from 0 (time units).
+        evolution : Evolution, optional
+            This solver's run over `times` (evolved here when omitted).  Given, its
+            details["convergence"] is set to the returned dict and
+            details["truncation"]["converged"] to its verdict (True, False or None).
+        tolerance : float, optional
+            Largest change of P_e (absolute) and of a rate (relative) for "converged".
+
+        Returns
+        -------
+        dict
+            {"checks": [{"key", "values", "max_change_excited", "rate_fitted": [G, G'],
+            "relative_change_rate", ("rate_golden_directions", "relative_change_golden"),
+            "converged"} or {"key", "values", "skipped": reason}], "tolerance", "verdict":
+            "converged" | "not converged" | "not checked"}.
+
+        Raises
+        ------
+        ScenarioError
+            If field.temperature > 0 (`plan`).
+        """
+        base = evolution if evolution is not None else self.evolve(times)
+        rate = decay_rate(times, base.excited, self.plan.start_level)
+        checks = []
+        for key, values, changes, reason in self.refinements():
+            if changes is None:
+                checks.append({"key": key, "values": values, "skipped": reason})
+                continue
+            finer = FockSolver(with_keys(self.scenario, changes))
+            try:
+                check_resources(finer.estimate(), self.name)
+                evolved = finer.evolve(times)
+            except ResourceError as exc:
+                checks.append({"key": key, "values": values, "skipped": f"not run: {exc}"})
+                continue
+            entry = {"key": key, "values": values,
+                     "max_change_excited": float(np.max(np.abs(evolved.excited - base.excited))),
+                     "rate_fitted": [rate, decay_rate(times, evolved.excited,
+                                                      self.plan.start_level)]}
+            entry["relative_change_rate"] = relative_change(*entry["rate_fitted"])
+            changes_seen = [entry["max_change_excited"], entry["relative_change_rate"]]
+            if key == DIRECTIONS_KEY:
+                field = field_for(self.scenario, self.model)
+                golden = [direction_golden_rate(self.model, field, plan)
+                          for plan in (self.plan, finer.plan)]
+                entry["rate_golden_directions"] = golden
+                entry["relative_change_golden"] = relative_change(*golden)
+                changes_seen.append(entry["relative_change_golden"])
+            entry["converged"] = all(c is None or c <= tolerance for c in changes_seen)
+            checks.append(entry)
+        judged = [c["converged"] for c in checks if "converged" in c]
+        verdict = ("not checked" if not judged else
+                   "converged" if all(judged) else "not converged")
+        report = {"checks": checks, "tolerance": float(tolerance), "verdict": verdict}
+        if evolution is not None:
+            evolution.details["convergence"] = report
+            evolution.details.setdefault("truncation", self.truncation())["converged"] = (
+                None if not judged else all(judged))
+        return report
 
     def _references(self, times, excited) -> dict:
         """P_e of the RWA star on the same modes and sectors, and of second-order perturbation
@@ -418,7 +624,8 @@ class FockSolver(Solver):
         return {"t": times, "excited": excited, "excited_rotating_wave": rwa,
                 "excited_second_order": second}
 
-    def _warnings(self, times, edge) -> list[str]:
+    def _warnings(self, times, edge, step) -> list[str]:
+        """The run's warnings: Fock cutoff reached, box recurrence, modes dropped, fringes."""
         plan, out = self.plan, []
         if edge.max() > FOCK_EDGE_TOLERANCE:
             out.append(f"Fock cutoff reached: probability {edge.max():.2e} on states at the "
@@ -435,7 +642,115 @@ class FockSolver(Solver):
             out.append(f"bath truncated to the {plan.modes.count} most strongly coupled of the "
                        f"{plan.modes.available} box modes within the cutoff; raise bath.fock_modes "
                        "to keep more")
+        if plan.separation and length is not None and step > np.pi / (FRINGE_BINS * plan.separation):
+            out.append(f"the box lattice step {step:.3g} of the momentum densities does not resolve "
+                       f"structure of period 2 pi / d = {2 * np.pi / plan.separation:.3g} (fringes "
+                       f"of a two-lobe packet); raise bath.box_length to at least "
+                       f"{2 * FRINGE_BINS * plan.separation:.4g} for densities that show them "
+                       "(P_e and the coherence do not depend on it)")
+        out += self._sector_warnings()
         return out
+
+    def _sector_warnings(self) -> list[str]:
+        """A warning when a given bath.sectors is too few for the coherence of a Gaussian."""
+        s, plan = self.scenario, self.plan
+        packet = packet_for(s)
+        if not plan.separation or s.bath.sectors is None or packet.shape != "gaussian":
+            return []
+        if plan.modes.box_length is None:
+            needed = hermite_nodes_for(packet.momentum_std * plan.separation)
+        else:
+            needed = coherent_sector_count(packet, 2 * np.pi / plan.modes.box_length,
+                                           plan.separation)
+        if s.bath.sectors >= needed:
+            return []
+        return [f"bath.sectors = {s.bath.sectors}: too few packet sectors to resolve exp(i P d) "
+                f"at d = {plan.separation:g}, so the coherence is inaccurate; raise bath.sectors "
+                f"to at least {needed} (or omit it)"]
+
+
+def relative_change(coarse, fine) -> float | None:
+    """|fine - coarse| / |fine| of two rates, None when either is missing or fine is 0.
+
+    Parameters
+    ----------
+    coarse, fine : float or None
+        Rates (inverse time units).
+
+    Returns
+    -------
+    float or None
+        Dimensionless.
+    """
+    if coarse is None or fine is None or not fine:
+        return None
+    return float(abs(fine - coarse) / abs(fine))
+
+
+def decay_rate(times, excited, start_level: int) -> float | None:
+    """The decay rate of a P_e curve: the least-squares slope of -ln P_e over RATE_WINDOW.
+
+    ln P_e(t) = ln A - G t fitted to the samples with P_e in RATE_WINDOW.  A plain line, for
+    comparing runs of one truncation with each other; whether the curve has a rate at all is
+    judged one layer up (`sim.result.fits`).
+
+    Parameters
+    ----------
+    times : ndarray, shape (T,)
+        Sample times (time units).
+    excited : ndarray, shape (T,)
+        P_e(t) (dimensionless).
+    start_level : int
+        The initial level: no decay rate for a ground-state start.
+
+    Returns
+    -------
+    float or None
+        G (inverse time units); None for a ground start or fewer than MIN_RATE_SAMPLES samples
+        in the window.
+    """
+    inside = (excited > RATE_WINDOW[0]) & (excited < RATE_WINDOW[1])
+    if start_level != EXCITED or inside.sum() < MIN_RATE_SAMPLES:
+        return None
+    return float(-np.polyfit(times[inside], np.log(excited[inside]), 1)[0])
+
+
+def direction_golden_rate(model, field, plan: FockPlan) -> float | None:
+    """Golden-rule decay rate of the packet with the angles replaced by the direction rule.
+
+    G = sum_P w_P sum_i W_i dG/dOmega(|P|, cos a_i), cos a_i = n_i.P / |P|, with dG/dOmega the
+    on-shell rate per solid angle of the continuum in |k| (`sim.solvers.markov.lattice.
+    direction_table`, emission, the bath's cutoff): the 3D golden rule as the fock bath's
+    directions see it.  It tends to the golden-rule rate as the rule's degree grows.
+
+    Parameters
+    ----------
+    model : COMModel
+    field : Field
+        The bath's field (its cutoff bounds |k|).
+    plan : FockPlan
+
+    Returns
+    -------
+    float or None
+        G (inverse time units); None in 1D or for a ground-state start.
+
+    References
+    ----------
+    J. J. Sakurai, Modern Quantum Mechanics, sec. 5.6 (the golden-rule transition rate).
+    """
+    if plan.modes.box_length is not None or plan.start_level != EXCITED:
+        return None
+    directions, solid = direction_rule(plan.direction_order)
+    n = directions @ axis_frame(plan.axis)
+    P = plan.sector_momenta
+    size = np.linalg.norm(P, axis=1)
+    unit = np.where(size[:, None] > 0, P / np.maximum(size, 1e-300)[:, None], plan.axis)
+    cosine = np.clip(unit @ n.T, -1.0, 1.0)
+    table = direction_table(model, field, EMISSION, np.repeat(size, len(solid)), cosine.ravel())
+    per_direction = np.bincount(table.row, weights=table.rate,
+                                minlength=cosine.size).reshape(cosine.shape)
+    return float(plan.sector_weights @ (per_direction @ solid))
 
 
 def fock_box_length(scenario, model) -> float:
@@ -459,13 +774,36 @@ def fock_box_length(scenario, model) -> float:
     return returning_box_length(t_max, emitted_speed(model, scenario), BOX_MARGIN)
 
 
+def axis_bins(span: float, separation: float | None) -> int:
+    """Bins of the 3D axis-momentum grid over `span`: MOMENTUM_BINS_3D, more for fringes.
+
+    With a coherence distance d, at least FRINGE_BINS bins per pi / d, so that structure of
+    period 2 pi / d (the fringes of a two-lobe density) is resolved.
+
+    Parameters
+    ----------
+    span : float
+        Width of the grid (momentum units).
+    separation : float or None
+        d (length units).
+
+    Returns
+    -------
+    int
+        Number of grid points.
+    """
+    if not separation:
+        return MOMENTUM_BINS_3D
+    return max(MOMENTUM_BINS_3D, math.ceil(span * FRINGE_BINS * separation / np.pi) + 1)
+
+
 def grid_points(plan: FockPlan) -> int:
     """Bins of the axis-momentum grid `momentum_grid` will build, without the basis.
 
     The reachable kicks sum_j n_j k_j.axis are bounded by filling the modes with the largest
     (smallest) axial momenta first, up to max_occupation each and N quanta in all, N the largest
     quanta number with an allowed level (`allowed_level`).  1D: the box lattice points between
-    the bounds; 3D: MOMENTUM_BINS_3D.
+    the bounds; 3D: `axis_bins` over the sectors' axial range widened by the bounds.
 
     Parameters
     ----------
@@ -476,8 +814,6 @@ def grid_points(plan: FockPlan) -> int:
     int
         G, at least the bins `momentum_grid` builds (exact when the extreme kicks are reachable).
     """
-    if plan.modes.box_length is None:
-        return MOMENTUM_BINS_3D
     quanta = max((n for n in range(plan.max_quanta + 1)
                   if allowed_level(n, plan.start_level, plan.rotating_wave) is not None),
                  default=0)
@@ -495,6 +831,8 @@ def grid_points(plan: FockPlan) -> int:
     top = extreme(np.sort(along)[::-1])
     bottom = -extreme(np.sort(-along)[::-1])
     sectors = plan.sector_momenta @ plan.axis
+    if plan.modes.box_length is None:
+        return axis_bins(float(sectors.max() - bottom - (sectors.min() - top)), plan.separation)
     step = 2 * np.pi / plan.modes.box_length
     return int(round((sectors.max() - bottom) / step) - round((sectors.min() - top) / step) + 1)
 
@@ -502,8 +840,9 @@ def grid_points(plan: FockPlan) -> int:
 def momentum_grid(plan: FockPlan, basis: FockBasis):
     """Axis-momentum grid covering every reachable p = P - sum n k, and its spacing.
 
-    1D: the box lattice itself (every reachable momentum is a lattice point, one bin each);
-    3D: MOMENTUM_BINS_3D uniform bins over the reachable range.
+    1D: the box lattice itself (with lattice sectors every reachable momentum is a lattice
+    point, one bin each; quadrature sectors fall into the nearest cell); 3D: `axis_bins`
+    uniform bins over the reachable range.
 
     Parameters
     ----------
@@ -523,5 +862,6 @@ def momentum_grid(plan: FockPlan, basis: FockBasis):
     if plan.modes.box_length is not None:
         step = 2 * np.pi / plan.modes.box_length
         return np.arange(round(low / step), round(high / step) + 1) * step, step
-    grid = np.linspace(low, high, MOMENTUM_BINS_3D) if high > low else np.array([low, low + 1.0])
+    grid = (np.linspace(low, high, axis_bins(high - low, plan.separation)) if high > low
+            else np.array([low, low + 1.0]))
     return grid, grid[1] - grid[0]

@@ -83,13 +83,20 @@ def octahedral_bath(s, radial_nodes):
 
 
 def axial_sectors(s):
-    """(|P|, weight) of the 3D packet sectors written out here: Gauss-Hermite nodes of the axial
-    marginal N(|p0|, sigma^2), sigma = 1 / (2 width) (numpy hermegauss, weight exp(-x^2/2);
-    Abramowitz & Stegun, Handbook of Mathematical Functions, sec. 25.4.46), weights normalised to
-    1, as the sim.solvers.fock.solver docstring defines them."""
+    """(P vectors, weights) of the 3D packet sectors written out here: Gauss-Hermite nodes of the
+    axial marginal N(|p0|, sigma^2), sigma = 1 / (2 width) (numpy hermegauss, weight
+    exp(-x^2/2); Abramowitz & Stegun, Handbook of Mathematical Functions, sec. 25.4.46), weights
+    normalised to 1, times the two-node Gauss-Laguerre rule of the 2D Gaussian's transverse
+    magnitude, rho = sigma sqrt(2 x_b) (numpy laggauss; A&S sec. 25.4.45), as the
+    sim.solvers.fock.solver docstring defines them.  The axis is z and the transverse momentum
+    lies along x (the octahedron is symmetric under that choice)."""
     x, w = np.polynomial.hermite_e.hermegauss(s.bath.sectors)
     sigma = 0.5 / s.packet.width
-    return float(np.linalg.norm(s.packet.momentum)) + sigma * x, w / w.sum()
+    along = float(np.linalg.norm(s.packet.momentum)) + sigma * x
+    nodes, weights = np.polynomial.laguerre.laggauss(2)
+    rho = sigma * np.sqrt(2 * nodes)
+    P = [[r, 0.0, a] for a in along for r in rho]
+    return np.array(P), np.outer(w / w.sum(), weights / weights.sum()).ravel()
 
 
 # --- tests ----------------------------------------------------------------------------------------
@@ -142,8 +149,8 @@ def test_rotating_wave_reproduces_exact_star_in_3d(make_scenario):
     k, mu = octahedral_bath(s, 3)
     d = s.detector
     expected = 0.0
-    for size, weight in zip(*axial_sectors(s)):
-        P = np.array([0.0, 0.0, size])
+    for P, weight in zip(*axial_sectors(s)):
+        size = np.linalg.norm(P)
         after = np.linalg.norm(P - k, axis=1)
         e_g, _ = energies("newton-wigner", d.ground_mass, d.gap, after)
         _, level = energies("newton-wigner", d.ground_mass, d.gap, size)
@@ -287,8 +294,8 @@ def test_vacuum_excitation_in_3d_matches_second_order(make_scenario):
     k, mu = octahedral_bath(s, 2)
     w = np.sqrt((k ** 2).sum(1) + s.field.mass ** 2)
     expected = np.zeros_like(result.times)
-    for size, weight in zip(*axial_sectors(s)):
-        P = np.array([0.0, 0.0, size])
+    for P, weight in zip(*axial_sectors(s)):
+        size = np.linalg.norm(P)
         e_g, _ = energies("newton-wigner", d.ground_mass, d.gap, size)
         _, e_e = energies("newton-wigner", d.ground_mass, d.gap, np.linalg.norm(P - k, axis=1))
         D = e_e + w - e_g
