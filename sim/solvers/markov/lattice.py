@@ -34,6 +34,7 @@ from ...physics.golden_rule import (
     kick_moments,
     reach,
 )
+from ...physics.coherence import coherence_distance
 from ...physics.models import EXCITED, GROUND, model_for
 from ...physics.quadrature import gauss_legendre
 
@@ -61,6 +62,14 @@ EXPECTED_JUMPS_FACTOR = 1.0
 NEGLIGIBLE_TRANSFER = 1e-14
 #: population in the cut states above which the run warns
 EDGE_TOLERANCE = 1e-6
+#: a coherence run's default lattice: at most this phase p d (radians) per lattice step at the
+#: coherence distance d, i.e. about 22 steps per fringe period 2 pi / d; the lattice split of a
+#: kick then lowers |Tr(rho exp(i P d))| by at most 1 - cos(0.14) = 1e-2 per jump
+COHERENCE_PHASE_STEP = 0.28
+#: fewer lattice steps than this per fringe period 2 pi / d do not resolve the fringes
+MIN_FRINGE_STEPS = 4
+#: a lattice split that lowers |Tr(rho exp(i P d))| by more than this per jump is warned about
+SPLIT_COHERENCE_TOLERANCE = 1e-2
 #: ODE options of mesolve / mcsolve (QuTiP 5)
 SOLVER_OPTIONS = {"method": "adams", "atol": 1e-12, "rtol": 1e-10, "nsteps": 1_000_000,
                   "progress_bar": False}
@@ -411,30 +420,90 @@ class MarkovGrid:
         return self.origin + np.asarray(n) * self.step
 
 
-def window_size(g) -> tuple[float, int]:
-    """(span in sigma_p each side, points) of the packet window: [grid] keys or the defaults.
+def packet_scale(packet) -> tuple[float, float]:
+    """(centre, width) of the axial momentum window: the packet's mean and momentum spread.
+
+    "gaussian" and "two-lobe": the envelope's axial mean and sigma_p = 1 / (2 width).  "file":
+    the middle of the table's range and the table's own standard deviation
+    sqrt(<p_z^2> - <p_z>^2) (its composite quadrature, exact for the interpolated density).
 
     Parameters
     ----------
-    g : GridConfig
-        The scenario's [grid] table (`scenario.grid`: span, points).
+    packet : Packet
+
+    Returns
+    -------
+    centre : float
+        Momentum units.
+    width : float
+        Momentum units, > 0.
+    """
+    if packet.shape != "file":
+        return packet.axis_mean, packet.momentum_std
+    p, w = packet.axial_quadrature(0)
+    mean = float(w @ p)
+    low, high = packet.axis_range()
+    return 0.5 * (low + high), float(np.sqrt(w @ (p - mean) ** 2))
+
+
+def window_size(scenario) -> tuple[float, int]:
+    """(span in packet widths each side, points) of the packet window: [grid] keys or defaults.
+
+    With w the window's width unit (`packet_scale`: sigma_p, or a "file" table's spread):
+    span = grid.span, default WINDOW_WIDTHS; a "file" packet's window is its table's range,
+    span = (p_last - p_first) / (2 w), and grid.span is refused.  points = grid.points, default
+    2 ceil(span STEPS_PER_WIDTH) + 1.  When the run reports a coherence at a distance d
+    (`sim.physics.coherence.coherence_distance`) and grid.points is not given, the default step
+    is also at most COHERENCE_PHASE_STEP / d (the fringes of period 2 pi / d resolved, the kick
+    split's loss of coherence below 1e-2 per jump), rounded down to k* / integer with k* the
+    rest-frame emitted momentum (so that a static detector's kicks land on the lattice):
+    points = 2 ceil(span w / step) + 1 and span widened to (points - 1) step / (2 w).
+
+    Parameters
+    ----------
+    scenario : Scenario
+        Its [grid] table (span, points), packet and, for a coherence run, detector.
 
     Returns
     -------
     span : float
-        grid.span, default WINDOW_WIDTHS (dimensionless, in sigma_p).
+        Dimensionless, in window widths w.
     points : int
-        grid.points, default 2 ceil(span STEPS_PER_WIDTH) + 1.
+        Lattice points of the packet window.
+
+    Raises
+    ------
+    ScenarioError
+        If grid.span is given with packet.shape = "file".
     """
-    span = g.span if g.span is not None else WINDOW_WIDTHS
-    points = g.points if g.points is not None else 2 * math.ceil(span * STEPS_PER_WIDTH) + 1
-    return span, points
+    g, packet = scenario.grid, packet_for(scenario)
+    _, width = packet_scale(packet)
+    if packet.shape == "file":
+        if g.span is not None:
+            raise ScenarioError(f"grid.span = {g.span!r}: a \"file\" packet's lattice window is its "
+                                "table's momentum range; remove grid.span (grid.points sets the "
+                                "lattice step)")
+        low, high = packet.axis_range()
+        span = 0.5 * (high - low) / width
+    else:
+        span = g.span if g.span is not None else WINDOW_WIDTHS
+    if g.points is not None:
+        return span, g.points
+    distance = coherence_distance(scenario)
+    if distance is None:
+        return span, 2 * math.ceil(span * STEPS_PER_WIDTH) + 1
+    kick = float(model_for(scenario).rest_emission_momentum())
+    step = min(width / STEPS_PER_WIDTH, COHERENCE_PHASE_STEP / distance[0])
+    step = kick / math.ceil(kick / step)
+    half = math.ceil(span * width / step * (1 - 1e-12))
+    return half * step / width, 2 * half + 1
 
 
 def grid_for(scenario, times) -> MarkovGrid:
     """The lattice from the [grid] keys or the automatic defaults.
 
-    step = 2 span sigma_p / (points - 1), origin = p0 - span sigma_p (`window_size`).  1D: no
+    step = 2 span w / (points - 1), origin = c - span w, with (c, w) the packet's window centre
+    and width (`packet_scale`) and (span, points) from `window_size`.  1D: no
     transverse nodes, two emission directions; 3D: TRANSVERSE_NODES Gauss-Laguerre nodes of the
     transverse momentum (`Packet.transverse_quadrature`) and `direction_quadrature` with
     grid.directions (default POLAR_DIRECTIONS) polar nodes.  Closure depth: 2 generations in the
@@ -454,7 +523,8 @@ def grid_for(scenario, times) -> MarkovGrid:
     Raises
     ------
     ScenarioError
-        If grid.directions is given and is not 2 for a 1D field.
+        If grid.directions is given and is not 2 for a 1D field, or grid.span is given for a
+        "file" packet (`window_size`).
 
     References
     ----------
@@ -463,9 +533,9 @@ def grid_for(scenario, times) -> MarkovGrid:
     """
     g = scenario.grid
     packet = packet_for(scenario)
-    sigma = packet.momentum_std
-    span, points = window_size(g)
-    step = 2 * span * sigma / (points - 1)
+    centre, width = packet_scale(packet)
+    span, points = window_size(scenario)
+    step = 2 * span * width / (points - 1)
     if scenario.dimensions == 1:
         if g.directions is not None and g.directions != 2:
             raise ScenarioError(f"grid.directions = {g.directions}: a 1D field has two emission "
@@ -475,7 +545,7 @@ def grid_for(scenario, times) -> MarkovGrid:
         transverse = packet.transverse_quadrature(TRANSVERSE_NODES)
         directions = direction_quadrature(g.directions or POLAR_DIRECTIONS)
     model, field = model_for(scenario), field_for(scenario)
-    p0 = scenario.mean_momentum
+    p0 = packet.axis_mean
     if scenario.field.temperature > 0:
         total = (kick_moments(model, field, EMISSION, p0).rate
                  + kick_moments(model, field, ABSORPTION, p0).rate)
@@ -485,8 +555,8 @@ def grid_for(scenario, times) -> MarkovGrid:
         generations = 2  # emission, then nothing: absorption needs quanta
     t_max = float(times[-1])
     smallest = NEGLIGIBLE_TRANSFER / t_max if t_max > 0 else 0.0
-    return MarkovGrid(p0 - span * sigma, step, points, span, transverse, directions, generations,
-                      smallest)
+    return MarkovGrid(centre - span * width, step, points, span, transverse, directions,
+                      generations, smallest)
 
 
 @dataclass
@@ -514,6 +584,9 @@ class Sector:
         3D: largest relative error of the direction quadrature's rate (dimensionless).
     generations : int, optional
         Generations of jumps the closure followed.
+    split_spread : float, optional
+        Largest f (1 - f) of the lattice split of a kept jump (`split_kicks`; dimensionless, in
+        [0, 1/4]): 0 when every kick lands on the lattice.
     """
 
     rho: float
@@ -525,6 +598,7 @@ class Sector:
     edge: np.ndarray  # states whose jumps were cut (boolean)
     quadrature_error: float = 0.0  # 3D: largest relative error of the direction quadrature's rate
     generations: int = 0  # generations of jumps the closure followed
+    split_spread: float = 0.0  # largest f (1 - f) of a kept jump's lattice split
 
     @property
     def size(self) -> int:
@@ -685,6 +759,8 @@ class Jumps:
     quadrature_error : float
         3D: largest relative error of the direction quadrature's rate over the batch
         (dimensionless; 0 in 1D).
+    split_spread : float
+        Largest f (1 - f) of the lattice split of a kept jump (dimensionless, in [0, 1/4]).
     """
 
     source: np.ndarray
@@ -692,6 +768,7 @@ class Jumps:
     shift: np.ndarray
     rate: np.ndarray
     quadrature_error: float = 0.0
+    split_spread: float = 0.0
 
 
 def _on_shell(model, field, process, grid: MarkovGrid, rho: float, n: np.ndarray):
@@ -754,6 +831,7 @@ def state_jumps(model, field, grid: MarkovGrid, rho: float, level: int, n) -> Ju
     Returns
     -------
     Jumps
+        With the largest f (1 - f) of the kept jumps' splits (`split_kicks`).
     """
     n = np.asarray(n, dtype=int)
     if n.size == 0 or (level == GROUND and field.temperature <= 0):
@@ -762,7 +840,9 @@ def state_jumps(model, field, grid: MarkovGrid, rho: float, level: int, n) -> Ju
     origin, shift, share = split_kicks(kick, grid.step)
     rate = rate[origin] * share
     keep = rate >= grid.smallest_rate
-    return Jumps(source[origin][keep], label[origin][keep], shift[keep], rate[keep], error)
+    spread = float(np.max(share[keep] * (1 - share[keep]), initial=0.0))
+    return Jumps(source[origin][keep], label[origin][keep], shift[keep], rate[keep], error,
+                 spread)
 
 
 def _state_keys(level, n):
@@ -796,7 +876,8 @@ def build_sector(model, field, grid: MarkovGrid, rho: float, weight: float,
     Returns
     -------
     Sector
-        States ordered by lattice index, then level.
+        States ordered by lattice index, then level; split_spread the largest f (1 - f) of the
+        followed jumps.
     """
     def batch(keys):
         levels = keys % 2
@@ -808,7 +889,7 @@ def build_sector(model, field, grid: MarkovGrid, rho: float, weight: float,
         return out
 
     known = _state_keys(start_level, np.arange(grid.points))
-    frontier, found, error = known, [], 0.0
+    frontier, found, error, spread = known, [], 0.0, 0.0
     for generation in range(1, grid.generations + 1):
         targets = []
         for keys, jumps in batch(frontier):
@@ -819,6 +900,7 @@ def build_sector(model, field, grid: MarkovGrid, rho: float, weight: float,
                 found.append((sources, ends, jumps))
                 targets.append(ends)
                 error = max(error, jumps.quadrature_error)
+                spread = max(spread, jumps.split_spread)
         frontier = np.setdiff1d(np.concatenate(targets), known) if targets else known[:0]
         known = np.union1d(known, frontier)
         if tick is not None:
@@ -834,7 +916,7 @@ def build_sector(model, field, grid: MarkovGrid, rho: float, weight: float,
     energies = np.where(levels == EXCITED, model.energy(EXCITED, p), model.energy(GROUND, p))
     families = _families(known, found)
     return Sector(rho, weight, levels, index, energies, families, np.isin(known, edge_keys),
-                  error, generation if grid.generations else 0)
+                  error, generation if grid.generations else 0, spread)
 
 
 def _families(known: np.ndarray, found: list) -> dict:
@@ -859,7 +941,11 @@ def _families(known: np.ndarray, found: list) -> dict:
 
 
 def packet_amplitudes(scenario, grid: MarkovGrid, level: int) -> dict:
-    """sqrt(|psi(p_n)|^2 dp) of the axial packet on the window, normalised on the lattice.
+    """a(p_n) sqrt(dp) of the axial packet amplitude on the window, normalised on the lattice.
+
+    a = `Packet.axis_amplitude`: real for a Gaussian, complex for the two lobes (their
+    relative phases e^{-+i p d / 2} carry the fringes) and a "file" table, so the initial
+    state is the pure |psi><psi| with its coherences.
 
     Parameters
     ----------
@@ -871,9 +957,19 @@ def packet_amplitudes(scenario, grid: MarkovGrid, level: int) -> dict:
     Returns
     -------
     dict
-        (level, n) -> real amplitude (dimensionless), with sum of squares 1.
+        (level, n) -> complex amplitude (dimensionless), with sum of |.|^2 equal to 1.
+
+    Raises
+    ------
+    ScenarioError
+        If the amplitude vanishes on every lattice point (a "file" table between the points),
+        naming grid.points.
     """
     n = np.arange(grid.points)
-    density = packet_for(scenario).axis_density(grid.momentum(n))
-    amps = np.sqrt(density / density.sum())
-    return {(level, int(i)): float(a) for i, a in zip(n, amps)}
+    amplitude = packet_for(scenario).axis_amplitude(grid.momentum(n))
+    norm = float(np.sum(np.abs(amplitude) ** 2))
+    if not norm > 0:
+        raise ScenarioError(f"grid.points = {grid.points}: the packet's amplitude is zero on every "
+                            "lattice point; allowed: more points (a finer lattice step)")
+    amps = amplitude / math.sqrt(norm)
+    return {(level, int(i)): complex(a) for i, a in zip(n, amps)}
