@@ -67,11 +67,12 @@ COLUMN_POWERS = {
     "rate_golden_rule": (-1, 0, 0), "rate_fitted": (-1, 0, 0), "lamb_shift": (-1, 0, 0),
     "t_start": (1, 0, 0), "t_end": (1, 0, 0), "line_rate": (-1, 0, 0),
     "rate": (-1, 0, 0), "length": (0, 0, 1),  # any rate or length (figures' axes)
+    "coherence_at": (0, 0, 1),
 }
 #: momentum.csv snapshot columns are named "t=<time>" and hold momentum densities
 SNAPSHOT_PREFIX = "t="
 #: summary.json numbers given in output units by `UnitSystem.summary_entries`
-SUMMARY_KEYS = ("rate_golden_rule", "rate_fitted", "lamb_shift", "t_max")
+SUMMARY_KEYS = ("rate_golden_rule", "rate_fitted", "lamb_shift", "t_max", "coherence_at")
 #: entries of summary["fit"] (`sim.result.fits.RateFit.summary`) with a unit: the window's
 #: first and last time and the line's rate; the others are dimensionless
 SUMMARY_FIT_KEYS = ("t_start", "t_end", "line_rate")

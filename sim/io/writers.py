@@ -300,7 +300,8 @@ def result_tables(result: Result) -> dict[str, dict[str, np.ndarray]]:
     -------
     dict
         File stem -> column -> values: population (t, excited), recoil (t, p_mean, p_var, x_var,
-        purity), momentum (p, then one density column per snapshot) and the method's own tables;
+        purity), momentum (p, then one density column per snapshot), coherence (t, coherence)
+        when the run reports the spatial coherence, and the method's own tables;
         times, momenta, variances and densities in the output units of a scenario with units
         (natural units otherwise).
     """
@@ -319,6 +320,8 @@ def result_tables(result: Result) -> dict[str, dict[str, np.ndarray]]:
         name = snapshot_column(float(conv("t", np.array([ts]))[0]))
         momentum[name] = conv("density", result.momentum_density[:, j])
     tables["momentum"] = momentum
+    if result.coherence is not None:
+        tables["coherence"] = {"t": t, "coherence": result.coherence}
     for name, columns in result.tables.items():
         tables[name] = {c: (conv(c, v) if c != "trajectory" else v) for c, v in columns.items()}
     return tables

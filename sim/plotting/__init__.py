@@ -17,8 +17,9 @@ from ..result.result import DRAWERS
 from .compare import compare_figure
 from .counter_rotating import counter_rotating_figure
 from .rates import rates_figure
-from .run_figures import (draw_decay, draw_momentum, draw_purity, draw_recoil_map,
-                          draw_variance, has_snapshots, variance_figure)
+from .run_figures import (draw_coherence, draw_decay, draw_momentum, draw_purity,
+                          draw_recoil_map, draw_variance, has_coherence, has_snapshots,
+                          variance_figure)
 from .style import (DPI, FORMATS, METHOD_COLOURS, MODEL_COLOURS, STAMP, figure_dpi,
                     figure_format, figure_path, save, stamp)
 from .sweep import sweep_figure
@@ -62,12 +63,13 @@ FIGURES: dict[str, Figure] = {
     "momentum": Figure(_single(draw_momentum)),
     "recoil_map": Figure(_single(draw_recoil_map), drawable=has_snapshots),
     "variance": Figure(variance_figure),
+    "coherence": Figure(_single(draw_coherence), drawable=has_coherence),
     "counter_rotating": Figure(counter_rotating_figure, needs="counter_rotating"),
     "trajectories": Figure(trajectories_figure, needs="emissions"),
 }
 
 DRAWERS.update(decay=draw_decay, momentum=draw_momentum, variance=draw_variance,
-               purity=draw_purity, recoil_map=draw_recoil_map)
+               purity=draw_purity, recoil_map=draw_recoil_map, coherence=draw_coherence)
 
 
 def result_figures(result, folder: str | Path, *, fmt: str = "png", dpi: float = DPI) -> list[str]:
@@ -102,7 +104,8 @@ def result_figures(result, folder: str | Path, *, fmt: str = "png", dpi: float =
 
 
 __all__ = ["DPI", "FIGURES", "FORMATS", "METHOD_COLOURS", "MODEL_COLOURS", "STAMP",
-           "compare_figure", "counter_rotating_figure", "draw_decay", "draw_momentum",
+           "compare_figure", "counter_rotating_figure", "draw_coherence", "draw_decay",
+           "draw_momentum",
            "draw_purity", "draw_recoil_map", "draw_variance", "figure_dpi", "figure_format",
            "figure_path", "rates_figure", "result_figures", "save", "stamp", "sweep_figure",
            "trajectories_figure", "variance_figure"]

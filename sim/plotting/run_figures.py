@@ -1,14 +1,17 @@
-"""The figures of one run: decay curve, recoil broadening, recoil map, packet spreading and purity.
+"""The figures of one run: decay curve, recoil broadening, recoil map, packet spreading, purity
+and spatial coherence.
 
 Each `draw_*` draws into given axes (a new stamped figure when None) and returns them; the
 figure registry (`sim.plotting.FIGURES`) turns them into decay.png, momentum.png,
-recoil_map.png and variance.png.
+recoil_map.png, variance.png and coherence.png.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
+from ..physics.coherence import static_kick_visibility
+from ..physics.golden_rule import rest_emitted_momentum
 from ..physics.models import EXCITED, level_of
 from .style import (
     LEGEND_SIZE,
@@ -302,8 +305,10 @@ def draw_variance(result, ax=None):
                  loc="lower right")
     if both:
         twin = ax.twinx()
-        lines += twin.plot(t, in_output_units(scenario, "x_var", result.x_var), ls="--",
-                           color=VARIANCE_COLOURS[1], lw=2, label=r"$\mathrm{Var}\,x$ (right axis)")
+        known = np.isfinite(result.x_var)  # x_var may be held at a subset of the times
+        lines += twin.plot(t[known], in_output_units(scenario, "x_var", result.x_var[known]),
+                           ls="--", color=VARIANCE_COLOURS[1], lw=2,
+                           label=r"$\mathrm{Var}\,x$ (right axis)")
         twin.set_ylabel(labelled(r"position variance $\mathrm{Var}\,x$", scenario, "x_var"),
                         color=VARIANCE_COLOURS[1])
     ax.set_title("packet spreading (simulated)", fontsize=10)
@@ -342,8 +347,9 @@ def draw_purity(result, ax=None):
     scenario = result.scenario
     ax = new_axes(ax, scenario)
     if has_purity(result):
-        ax.plot(output_times(result), result.purity, color=VARIANCE_COLOURS[2], lw=2,
-                label=r"purity $\mathrm{Tr}\,\rho_{\mathrm{COM}}^2$ (simulated)")
+        known = np.isfinite(result.purity)  # held at a subset of the times
+        ax.plot(output_times(result)[known], result.purity[known], color=VARIANCE_COLOURS[2],
+                lw=2, label=r"purity $\mathrm{Tr}\,\rho_{\mathrm{COM}}^2$ (simulated)")
         ax.legend(fontsize=LEGEND_SIZE)
     else:
         add_note(ax, [f"{result.method} does not compute the purity"], loc="center")
@@ -374,3 +380,75 @@ def variance_figure(result):
     bottom.set_title("coherence of the centre of mass (simulated)", fontsize=10)
     stamp_for(fig, result.scenario)
     return fig
+
+
+def has_coherence(result) -> bool:
+    """Whether the run reports the spatial coherence at some time.
+
+    Parameters
+    ----------
+    result : Result
+
+    Returns
+    -------
+    bool
+    """
+    return result.coherence is not None and bool(np.any(np.isfinite(result.coherence)))
+
+
+def static_limit(result) -> float | None:
+    """The coherence left after one emission by a static detector, or None where it does not apply.
+
+    |cos(k* d)| in 1D, |sin(k* d) / (k* d)| in 3D (`static_kick_visibility`) with k* the
+    momentum emitted at rest (`rest_emitted_momentum`); only for an excited start in the vacuum.
+
+    Parameters
+    ----------
+    result : Result
+
+    Returns
+    -------
+    float or None
+        The visibility (dimensionless).
+    """
+    scenario = result.scenario
+    k = rest_emitted_momentum(scenario)
+    if (k is None or scenario.field.temperature > 0
+            or level_of(scenario.packet.internal) != EXCITED):
+        return None
+    return float(static_kick_visibility(k, result.summary["coherence_at"], scenario.dimensions))
+
+
+def draw_coherence(result, ax=None):
+    """Spatial coherence |Tr(rho_COM(t) e^{iPd})| / |Tr(rho_COM(0) e^{iPd})| against time.
+
+    With the static-limit value after one emission (`static_limit`) as a reference line.
+
+    Parameters
+    ----------
+    result : Result
+    ax : matplotlib Axes, optional
+        Axes to draw into; a new stamped figure when None.
+
+    Returns
+    -------
+    matplotlib Axes
+    """
+    scenario = result.scenario
+    ax = new_axes(ax, scenario)
+    t = output_times(result)
+    known = np.isfinite(result.coherence)
+    distance = quantity_text(result.summary["coherence_at"], scenario, "length")
+    ax.plot(t[known], result.coherence[known], color=VARIANCE_COLOURS[0], lw=2,
+            label=method_label(result.method, result))
+    limit = static_limit(result)
+    if limit is not None:
+        formula = r"$|\cos k^*d|$" if scenario.dimensions == 1 else r"$|\sin k^*d\,/\,k^*d|$"
+        ax.axhline(limit, **REFERENCE_STYLE,
+                   label=f"static detector after one emission, {formula} = {limit:.3g}")
+    ax.set_ylim(0.0, 1.08)
+    ax.set_xlabel(time_label(scenario))
+    ax.set_ylabel(r"coherence $|\mathrm{Tr}\,\rho_{\mathrm{COM}}\,e^{iPd}|$ (relative to t = 0)")
+    ax.set_title(f"spatial coherence at d = {distance} (simulated)", fontsize=10)
+    ax.legend(fontsize=LEGEND_SIZE, loc="upper right")
+    return ax

@@ -14,6 +14,7 @@ from importlib import metadata
 import numpy as np
 
 from ..config.schema import Scenario
+from ..physics.coherence import coherence_distance, coherence_warning, spatial_coherence
 from ..physics.field import packet_for
 from ..physics.golden_rule import packet_rate
 from ..physics.models import EXCITED, level_of
@@ -92,6 +93,8 @@ def assemble(method: str, scenario: Scenario, evo: Evolution) -> Result:
                 + norm_warning(evo.norm, NORM_ADVICE.get(method, "")))
     if excited_start and fit.rate is None and fit.verdict != THERMAL:
         warnings.append(fit_warning(scenario, golden, fit, evo.excited))
+    coherence, coherence_entries, coherence_notes = coherence_of(method, scenario, evo)
+    warnings += coherence_notes
     summary = {
         "title": scenario.title,
         "method": method,
@@ -105,6 +108,7 @@ def assemble(method: str, scenario: Scenario, evo: Evolution) -> Result:
         "t_max": float(times[-1]),
         "samples": int(len(times)),
         "final_excited": float(evo.excited[-1]),
+        **coherence_entries,
         "warnings": warnings,
         "scenario": dict(scenario.source),
         "resolved": resolved_parameters(scenario),
@@ -117,7 +121,49 @@ def assemble(method: str, scenario: Scenario, evo: Evolution) -> Result:
                   purity=evo.purity if evo.purity is not None else nan,
                   momentum_grid=evo.momentum_grid, snapshot_times=evo.snapshot_times,
                   momentum_density=evo.momentum_density, initial_density=evo.initial_density,
-                  summary=summary, tables=evo.tables, final_state=evo.final_state)
+                  summary=summary, tables=evo.tables, final_state=evo.final_state,
+                  coherence=coherence)
+
+
+def coherence_of(method: str, scenario: Scenario, evo: Evolution):
+    """The spatial coherence of a run, its summary entries and warnings.
+
+    coherence(t) = |chi(t)| / |chi(0)| with chi(t) = Tr(rho_COM(t) exp(i P d)) from the solver
+    (`Evolution.coherence`) at d = `coherence_distance(scenario)`.
+
+    Parameters
+    ----------
+    method : str
+    scenario : Scenario
+    evo : Evolution
+
+    Returns
+    -------
+    coherence : ndarray or None
+        Over the sample times (dimensionless; nan where not computed), None when the scenario
+        asks for no coherence or the method gives none.
+    entries : dict
+        coherence_at (d, length units) and final_coherence (the last computed value, or None)
+        when a distance is set; empty otherwise.
+    notes : list of str
+        Why the coherence is missing (the method does not compute it, or the packet holds no
+        coherence at d: `coherence_warning`).
+    """
+    distance = coherence_distance(scenario)
+    if distance is None:
+        return None, {}, []
+    d, key = distance
+    entries = {"coherence_at": d, "final_coherence": None}
+    if evo.coherence is None:
+        return None, entries, [f"spatial coherence at {key} = {d:g}: method \"{method}\" does "
+                               "not compute it for this scenario, so final_coherence is null; "
+                               "choose another run.method"]
+    chi = np.asarray(evo.coherence, dtype=complex)
+    coherence = spatial_coherence(chi)
+    known = np.flatnonzero(np.isfinite(coherence))
+    if known.size:
+        entries["final_coherence"] = float(coherence[known[-1]])
+    return coherence, entries, coherence_warning(chi[0], d, key)
 
 
 #: where each method's norm drift comes from and the key that reduces it (`norm_warning`): the

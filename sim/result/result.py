@@ -29,6 +29,9 @@ class Result:
     column -> array), written as DIR/<name>.csv.  `final_state` is the final reduced COM state
     as a `qutip.Qobj` where the solver has it.  `summary["rate_fitted"]` is None when the
     curve has no rate; `summary["fit"]` says why (`sim.result.fits.RateFit.summary`).
+    `coherence` is the spatial coherence |Tr(rho_COM(t) exp(i P d))| / |Tr(rho_COM(0) exp(i P d))|
+    at the distance `summary["coherence_at"]` along the packet axis (dimensionless; None when
+    the run reports none, nan where not computed).
     """
 
     method: str
@@ -46,6 +49,7 @@ class Result:
     summary: dict = field(default_factory=dict)
     tables: dict = field(default_factory=dict)
     final_state: Any = None
+    coherence: np.ndarray | None = None
 
     @property
     def warnings(self) -> list[str]:

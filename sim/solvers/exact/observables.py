@@ -37,6 +37,8 @@ POSITION_OVERSAMPLING = 8
 FINAL_STATE_LIMIT = 4000
 #: 3D axis density: quantile nodes in cos(angle of P to the axis), azimuth nodes
 AXIS_NODES, AZIMUTH_NODES = 16, 12
+#: 3D spatial coherence: Gauss-Legendre nodes in the quantile of cos(angle of P to the axis)
+DIRECTION_NODES = 32
 #: 1D density on the lattice up to this many points, else on the perturbative grid
 LATTICE_DENSITY_LIMIT = 6001
 #: warn when the 1D sectors are further apart in momentum than this fraction of the packet's
@@ -347,6 +349,73 @@ class ReducedState1D:
         for column in range(width):
             vectors[rows - (self.first + column), column + 1] = self.modes[row, :, column]
         return vectors, (np.arange(points) + lowest) * self.spacing
+
+
+def direction_quantiles(kappa: float, nodes: int = DIRECTION_NODES) -> tuple[np.ndarray, np.ndarray]:
+    """Quadrature of the conditional law of x = cos(angle of P to the packet axis) (3D).
+
+    The density ~ exp(kappa x) on [-1, 1] (von Mises-Fisher, kappa = |P| |p0| / sigma_p^2),
+    integrated in its quantile q in (0, 1) by Gauss-Legendre: E[f(x)] = Int_0^1 f(x(q)) dq
+    with the closed-form inverse x(q) = -1 + log(1 + q (exp(2 kappa) - 1)) / kappa (uniform for
+    kappa -> 0).
+
+    Parameters
+    ----------
+    kappa : float
+        Concentration (dimensionless, >= 0).
+    nodes : int, optional
+        Gauss-Legendre nodes (default DIRECTION_NODES).
+
+    Returns
+    -------
+    x : ndarray, shape (nodes,)
+        cos(alpha) at the nodes (dimensionless).
+    weights : ndarray, shape (nodes,)
+        Their weights, summing to 1.
+    """
+    t, w = np.polynomial.legendre.leggauss(nodes)
+    q, w = 0.5 * (t + 1), 0.5 * w
+    if kappa < 1e-8:
+        return 2 * q - 1, w
+    x = -1 + np.logaddexp(0, np.log(q) + 2 * kappa + np.log(-np.expm1(-2 * kappa))) / kappa
+    return np.clip(x, -1, 1), w
+
+
+def direction_phases(packet, sector, d: float) -> tuple[complex, np.ndarray]:
+    """<exp(i p_z d)> of the level and of each mode of a 3D sector, over the directions.
+
+    The sector's direction P^ follows the packet's conditional law about the axis
+    (`direction_quantiles`); a quantum at |k|, cos(angle to P) = u leaves p_z = |P| x - k (u x
+    + sqrt(1 - u^2) sqrt(1 - x^2) cos phi), and its azimuth phi averages to a Bessel function:
+
+        <exp(i p_z d)> = E_x[ exp(i (|P| - k u) x d) J0(k d sqrt(1 - u^2) sqrt(1 - x^2)) ],
+
+    the level's E_x[exp(i |P| x d)].
+
+    Parameters
+    ----------
+    packet : Packet
+    sector : Sector
+        A 3D sector (its nodes' mean |k| and u).
+    d : float
+        Distance along the packet axis (length units).
+
+    Returns
+    -------
+    level : complex
+        The level's phase average (dimensionless).
+    modes : ndarray of complex, shape (N,)
+        Each mode's (dimensionless).
+    """
+    from scipy.special import j0
+
+    kappa = sector.momentum * packet.mean_speed / packet.momentum_std ** 2
+    x, w = direction_quantiles(kappa)
+    r, k, u = sector.momentum, sector.quanta[:, None], sector.cosines[:, None]
+    level = complex(np.sum(w * np.exp(1j * r * x * d)))
+    across = k * d * np.sqrt(np.clip(1 - u * u, 0, None)) * np.sqrt(np.clip(1 - x * x, 0, None))
+    modes = (np.exp(1j * (r - k * u) * x * d) * j0(across)) @ w
+    return level, modes
 
 
 def axis_density(grid, packet, sector, node_probability) -> np.ndarray:

@@ -27,16 +27,20 @@ from scipy.ndimage import gaussian_filter1d
 
 from ...errors import ScenarioError
 from ...physics.checks import with_keys
+from ...physics.coherence import coherence_distance
 from ...physics.field import packet_for
 from ...physics.models import model_for
 from ..base import SAMPLE_BYTES, Estimate, Evolution, Solver, credit
 from ..common import SNAPSHOTS, axis_grid, last_sample_time, masked, snapshot_indices
 from .baths import Bath, bath_for, discreteness_correction, lamb_sector, refined_keys
-from .observables import STATE_ELEMENTS, ReducedState1D, axis_density, lattice_density
+from .observables import (STATE_ELEMENTS, ReducedState1D, axis_density, direction_phases,
+                          lattice_density)
 from .star import CHUNK_ELEMENTS, DUHAMEL_NODES, duhamel_substeps, sector_lamb_shift, star_spectrum
 
 #: 3D axis density: Gaussian smoothing of the sampled histogram, in grid cells
 DENSITY_SMOOTHING = 1.5
+#: largest phase D d of exp(i p d) between neighbouring 1D sectors (D apart) for chi(t)
+FRINGE_PHASE = 0.5
 
 # Memory of a run (`ExactSolver.estimate`), measured as the peak resident memory of the bundled
 # scenarios (default.toml, recoil_3d.toml) at several sample counts:
@@ -84,6 +88,11 @@ def unsupported(scenario) -> list[str]:
         problems.append(f"packet.internal = \"{scenario.packet.internal}\": in the vacuum under the "
                         "rotating-wave approximation a ground-state detector never changes; "
                         "allowed: \"excited\"")
+    if scenario.dimensions == 3 and scenario.packet.shape != "gaussian":
+        problems.append(f"packet.shape = \"{scenario.packet.shape}\" in 3D: method \"exact\" "
+                        "splits a 3D packet into sectors of |P| with the directions of a Gaussian; "
+                        "allowed: \"gaussian\" (use method \"perturbative\" or \"fock\" for "
+                        "this shape)")
     if not scenario.coupling.rotating_wave:
         problems.append("coupling.rotating_wave = false: method \"exact\" solves the "
                         "rotating-wave single-excitation sectors; allowed: true (use method "
@@ -123,6 +132,7 @@ class ExactSolver(Solver):
     """
 
     name = "exact"
+    packet_shapes = ("gaussian", "two-lobe", "file")
 
     def __init__(self, scenario, *, progress: bool = False):
         super().__init__(scenario, progress=progress)
@@ -420,25 +430,36 @@ def _evolve_1d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
     snap_rows, state_rows = np.searchsorted(rows, snaps), None
     if state is not None:
         state_rows = np.searchsorted(rows, state.times)
+    distance = coherence_distance(scenario)
+    d = distance[0] if distance is not None else None
+    chi = np.zeros(times.size, dtype=complex) if d is not None else None
     for index, (sector, spectrum) in enumerate(zip(bath.sectors, spectra)):
         level = spectrum.level_amplitude(times)
         level_p = np.abs(level) ** 2
         excited += sector.weight * level_p
         p_after = sector.momentum - sector.quanta
-        powers = p_after[:, None] ** np.arange(3)
-        ground, bright = spectrum.mode_series(times, powers, rows)
-        moments += sector.weight * (level_p[:, None] * sector.momentum ** np.arange(3) + ground)
+        values = p_after[:, None] ** np.arange(3)
+        if d is not None:  # Re and Im of exp(i p d) per mode: chi(t) from the same sums
+            values = np.hstack([values, np.cos(p_after * d)[:, None], np.sin(p_after * d)[:, None]])
+        sums, bright = spectrum.mode_series(times, values, rows)
+        moments += sector.weight * (level_p[:, None] * sector.momentum ** np.arange(3) + sums[:, :3])
+        if d is not None:
+            chi += sector.weight * (level_p * np.exp(1j * sector.momentum * d)
+                                    + sums[:, 3] + 1j * sums[:, 4])
         modes = spectrum.modes_from_bright(bright)
         lattice_p.append(round(sector.momentum / bath.spacing) - sector.lattice)
         probability.append(sector.weight * np.abs(modes[snap_rows].T) ** 2)
         if state is not None:
-            state.add(index, sector, level[state.times], modes[state_rows])
+            phase = np.exp(1j * np.angle(packet.axis_amplitude(np.array([sector.momentum]))[0]))
+            state.add(index, sector, phase * level[state.times], phase * modes[state_rows])
     norm = moments[:, 0]
     mean = moments[:, 1] / norm
     variance = moments[:, 2] / norm - mean ** 2
     grid, density, density_notes = lattice_density(scenario, bath, np.concatenate(lattice_p),
                                                    np.concatenate(probability))
     warnings, x_var, purity, final, details = list(density_notes), None, None, None, {}
+    if distance is not None:
+        warnings += fringe_warning(bath, *distance)
     if state is None:
         warnings.append("x_var, purity: not computed (the reduced state needs the sectors on "
                         f"every lattice point (stride here {bath.stride}) and at most "
@@ -452,7 +473,38 @@ def _evolve_1d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
     return Evolution(excited=excited, p_mean=mean, p_var=variance, momentum_grid=grid,
                      snapshot_times=times[snaps], momentum_density=density,
                      initial_density=packet.axis_density(grid), x_var=x_var, purity=purity,
-                     norm=norm, final_state=final, warnings=warnings, details=details)
+                     norm=norm, final_state=final, warnings=warnings, details=details,
+                     coherence=chi)
+
+
+def fringe_warning(bath: Bath, d: float, key: str) -> list[str]:
+    """A warning when the 1D sectors are too far apart to resolve exp(i p d).
+
+    chi = sum_P w_P exp(i P d) samples the packet's density times a phase that turns by
+    D d between neighbouring sectors D = stride x dk apart; beyond FRINGE_PHASE the sum
+    aliases (and a two-lobe packet's fringes of period 2 pi / d are not resolved).
+
+    Parameters
+    ----------
+    bath : Bath
+        A 1D bath.
+    d : float
+        The coherence distance (length units).
+    key : str
+        The key that set it.
+
+    Returns
+    -------
+    list of str
+        One line naming bath.sectors when D d > FRINGE_PHASE, else empty.
+    """
+    spacing = bath.stride * bath.spacing
+    if spacing * d <= FRINGE_PHASE:
+        return []
+    needed = math.ceil(len(bath.sectors) * spacing * d / FRINGE_PHASE)
+    return [f"spatial coherence at {key} = {d:g}: the sectors sit {spacing:.3g} apart in momentum, "
+            f"so exp(i p d) turns by {spacing * d:.2f} rad between them (more than "
+            f"{FRINGE_PHASE:g}) and chi(t) is not resolved; raise bath.sectors to about {needed}"]
 
 
 # --- 3D -----------------------------------------------------------------------------------------
@@ -465,6 +517,9 @@ def _evolve_3d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
     excited = np.zeros(times.size)
     moments = np.zeros((times.size, 3))
     density = np.zeros((grid.size, snaps.size))
+    distance = coherence_distance(scenario)
+    d = distance[0] if distance is not None else None
+    chi = np.zeros(times.size, dtype=complex) if d is not None else None
     for sector, spectrum in zip(bath.sectors, spectra):
         level = spectrum.level_amplitude(times)
         level_p = np.abs(level) ** 2
@@ -473,8 +528,13 @@ def _evolve_3d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
         # per mode: 1, k u, k^2 u^2 and k^2 (1 - u^2) / 2 (emission relative to P)
         values = np.stack([np.ones_like(k), k * u, sector.quanta_square * u * u,
                            0.5 * sector.quanta_square * (1 - u * u)], axis=1)
+        if d is not None:  # Re and Im of each mode's <exp(i p_z d)>: chi(t) from the same sums
+            level_phase, mode_phases = direction_phases(packet, sector, d)
+            values = np.hstack([values, mode_phases.real[:, None], mode_phases.imag[:, None]])
         sums, bright = spectrum.mode_series(times, values, snaps)
-        ground, along, along2, across2 = sums.T
+        ground, along, along2, across2 = sums[:, :4].T
+        if d is not None:
+            chi += sector.weight * (level_p * level_phase + sums[:, 4] + 1j * sums[:, 5])
         cos1, cos2 = packet.direction_moments(r)
         moments += sector.weight * np.stack([
             level_p + ground,
@@ -491,4 +551,4 @@ def _evolve_3d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
     density = gaussian_filter1d(density, DENSITY_SMOOTHING, axis=0, mode="constant")
     return Evolution(excited=excited, p_mean=mean, p_var=variance, momentum_grid=grid,
                      snapshot_times=times[snaps], momentum_density=density,
-                     initial_density=initial, norm=norm)
+                     initial_density=initial, norm=norm, coherence=chi)
