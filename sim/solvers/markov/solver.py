@@ -98,6 +98,7 @@ from ...physics.coherence import coherence_distance
 from ...physics.field import field_for, packet_for
 from ...physics.golden_rule import ABSORPTION, EMISSION, kick_moments
 from ...physics.models import EXCITED, GROUND, level_of, model_for
+from ...errors import ScenarioError
 from ..base import Estimate, Evolution, Solver, credit
 from ..common import last_sample_time, snapshot_indices
 from .cost import SectorSize, peak_bytes, run_seconds, run_work, series_bytes
@@ -662,6 +663,11 @@ class MarkovSolver(Solver):
         Show progress bars on stderr: the closure's jump operators (per generation), and the
         evolution (mesolve's bar in 1D, per segment of the rate equation in 3D); default False.
 
+    Raises
+    ------
+    ScenarioError
+        If coupling.rotating_wave = false (the counter-rotating terms are not kept).
+
     References
     ----------
     H.-P. Breuer & F. Petruccione, The Theory of Open Quantum Systems (OUP 2002), ch. 3.
@@ -670,6 +676,14 @@ class MarkovSolver(Solver):
 
     name = "markov"
     packet_shapes = ("gaussian", "two-lobe", "file")
+
+    def __init__(self, scenario, *, progress: bool = False):
+        super().__init__(scenario, progress=progress)
+        if not scenario.coupling.rotating_wave:
+            raise ScenarioError("coupling.rotating_wave = false: method \"markov\" keeps the "
+                                "rotating-wave jumps only and cannot include the counter-rotating "
+                                "terms; allowed: true (use method \"perturbative\" or \"fock\", "
+                                "which keep them)")
 
     def setup(self, times):
         """The model, field, lattice and sectors for the scenario and sample times.
@@ -888,8 +902,7 @@ class MarkovSolver(Solver):
         Returns
         -------
         list of str
-            A warning when the largest edge population exceeds EDGE_TOLERANCE; when
-            coupling.rotating_wave = false (only energy-conserving jumps are kept); in 3D that
+            A warning when the largest edge population exceeds EDGE_TOLERANCE; in 3D that
             Var x and the purity are withheld, and in a warm 3D field that the transverse kicks
             are not followed (`transverse_warning`); and the coherence lattice's warnings
             (`coherence_warnings`).  (The ring overflow of Var x: `ring_overflow`.)
@@ -901,9 +914,6 @@ class MarkovSolver(Solver):
             out.append(f"markov closure cut: population {worst:.2e} reached states after "
                        f"{grid.generations} jumps (or {MAX_STATES} states), whose further jumps "
                        "are not followed; shorten run.t_max or coarsen grid.points")
-        if not s.coupling.rotating_wave:
-            out.append("coupling.rotating_wave = false: the secular master equation keeps only "
-                       "energy-conserving (rotating-wave) jumps; counter-rotating terms are dropped")
         if s.dimensions == 3:
             out.append("x_var, purity: not computed in 3D (markov evolves only the populations "
                        "there, exactly for every momentum output, and holds the transverse "

@@ -221,3 +221,18 @@ def test_thermal_1d_refusal_names_the_run_length_first():
     assert estimate.states > 2000
     reason = refusal(estimate, "markov", available=estimate.memory_bytes / 2)
     assert reason.startswith("run.t_max = 60: ") and "lower run.t_max" in reason
+
+
+def test_markov_refuses_counter_rotating_terms():
+    # markov keeps only the rotating-wave jumps: it refuses rotating_wave = false rather than
+    # silently dropping the counter-rotating terms (methods perturbative and fock keep them)
+    from sim.errors import ScenarioError
+    from sim.physics.checks import load_scenario
+    from sim.solvers import solver_for
+
+    raw = {"title": "rwa", "detector": {"model": "galilean", "ground_mass": 100.0, "gap": 0.5},
+           "field": {"dimensions": 1}, "coupling": {"strength": 0.1, "rotating_wave": False},
+           "packet": {"width": 5.0, "momentum": 150.0, "internal": "ground"},
+           "run": {"method": "markov", "t_max": 10.0, "samples": 11}}
+    with pytest.raises(ScenarioError, match="rotating_wave = false: method \"markov\""):
+        solver_for(load_scenario(raw))
