@@ -257,6 +257,11 @@ def print_comparison(summary: dict, out: Path) -> None:
     for method in summary["methods"]:
         fit = summary.get("fits", {}).get(method) or {}
         verdict = fit.get("verdict") or ("reference" if method == "exact" else "ran")
+        cut = summary.get("truncation", {}).get(method)
+        if cut:
+            judged = {True: "converged", False: "not converged"}.get(cut["converged"],
+                                                                     "convergence not checked")
+            verdict += f"; truncated {cut['kept']} of {cut['of']} {cut['what']}, {judged}"
         warns = len(summary["warnings"].get(method, []))
         verdict += f"; {warns} warning{'s' if warns != 1 else ''}" if warns else ""
         print(f"  {method:<13}{_number(summary['rate_fitted'].get(method)):>13}  "

@@ -2,7 +2,7 @@
 difference from exact.
 
 Curves lying on top of each other keep distinct dashes and markers and are named in a note; a
-method whose bath is truncated (`style.bath_truncation`) is drawn dashed and labelled with the
+method whose bath is truncated and not judged converged (`style.truncation_converged`) is drawn dashed and labelled with the
 modes it kept; a method that did not run is named with the reason.
 """
 
@@ -16,7 +16,7 @@ from .style import (
     LEGEND_SIZE,
     NOT_CONVERGED,
     add_note,
-    bath_truncation,
+    truncation_converged,
     coincidence_lines,
     in_output_units,
     method_label,
@@ -82,7 +82,7 @@ def compare_figure(scenario, times, curves: dict, reference: str = REFERENCE, *,
     reference : str
         The method the others are measured against (no difference panels without it).
     results : dict, optional
-        Method -> its Result: a method whose bath is truncated (`bath_truncation`) is drawn
+        Method -> its Result: a truncated method not judged converged (`truncation_converged`) is drawn
         dashed and labelled "truncated: K of N modes".
     left_out : dict, optional
         Method -> reason, for methods that gave no curve (skipped or failed): named in a note.
@@ -99,7 +99,7 @@ def compare_figure(scenario, times, curves: dict, reference: str = REFERENCE, *,
     fig, axes = new_figure(1 + len(others), 1, figsize=(6.4, 4.2 + 1.25 * len(others)),
                            sharex=True, height_ratios=(3.2,) + (1,) * len(others), squeeze=False)
     top, panels = axes[0, 0], axes[1:, 0]
-    styles = {m: method_style(m, m not in results or bath_truncation(results[m]) is None)
+    styles = {m: method_style(m, m not in results or truncation_converged(results[m]))
               for m in curves}
     for method, values in curves.items():
         top.semilogy(t, np.clip(values, 1e-300, None),

@@ -8,7 +8,7 @@ from .style import (
     LEGEND_SIZE,
     REFERENCE_STYLE,
     add_note,
-    bath_truncation,
+    truncation_converged,
     coincidence_lines,
     method_label,
     method_style,
@@ -41,7 +41,7 @@ def counter_rotating_figure(result):
     table = result.tables["counter_rotating"]
     t = output_times(result)
     fig, (top, bottom) = new_figure(2, 1, figsize=(6.4, 5.8), sharex=True, height_ratios=(2, 1))
-    style = method_style(result.method, bath_truncation(result) is None)
+    style = method_style(result.method, truncation_converged(result))
     label = method_label(result.method, result).replace(" (simulated)", "")
     top.plot(t, table["excited"], label=f"{label}, all terms (simulated)", **style)
     top.plot(t, table["excited_rotating_wave"], label="rotating-wave approximation",

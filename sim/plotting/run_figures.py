@@ -17,7 +17,7 @@ from .style import (
     LEGEND_SIZE,
     REFERENCE_STYLE,
     add_note,
-    bath_truncation,
+    truncation_converged,
     coincidence_lines,
     in_output_units,
     labelled,
@@ -81,7 +81,7 @@ def draw_decay(result, ax=None):
     scenario = result.scenario
     ax = new_axes(ax, scenario)
     t = output_times(result)
-    converged = bath_truncation(result) is None
+    converged = truncation_converged(result)
     ax.semilogy(t, np.clip(result.excited, 1e-300, None), label=method_label(result.method, result),
                 **method_style(result.method, converged))
     golden = golden_rule_curve(result)
@@ -160,7 +160,7 @@ def draw_momentum(result, ax=None):
     last = len(result.snapshot_times) - 1
     final = in_output_units(scenario, "density", result.momentum_density[:, last])
     ax.plot(p, final, label="ground state, " + snapshot_label(result, last),
-            **method_style(result.method, bath_truncation(result) is None))
+            **method_style(result.method, truncation_converged(result)))
     shown = np.column_stack([result.initial_density, result.momentum_density[:, last]])
     ax.set_xlim(*momentum_window(p, np.nan_to_num(shown)))
     ax.set_xlabel(labelled(axis_name(result), scenario, "p"))

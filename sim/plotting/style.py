@@ -564,10 +564,13 @@ def model_style(model: str) -> dict:
     return line_style(MODEL_COLOURS.get(model, "0.5"), dash, marker, index)
 
 
-def bath_truncation(result) -> tuple[int, int] | None:
-    """(modes kept, modes available) when a run's bath keeps fewer modes than its box holds.
+def bath_truncation(result) -> tuple[int, int, bool | None] | None:
+    """(modes kept, modes available, converged) when a run's bath keeps fewer modes than it
+    stands for.
 
-    Read from the run's stats (``fock_modes`` and ``box_modes`` of the fock method).
+    Read from the run's stats: the solver's truncation record ``truncation`` (kept, of, and
+    converged: True, False, or None when not checked), else the fock method's ``fock_modes``
+    and ``box_modes``.
 
     Parameters
     ----------
@@ -575,14 +578,31 @@ def bath_truncation(result) -> tuple[int, int] | None:
 
     Returns
     -------
-    (int, int) or None
+    (int, int, bool or None) or None
         None when every available mode is kept, or the method reports no mode count.
     """
     stats = result.summary.get("stats", {})
-    kept, available = stats.get("fock_modes"), stats.get("box_modes")
+    record = stats.get("truncation") or {}
+    kept = record.get("kept", stats.get("fock_modes"))
+    available = record.get("of", stats.get("box_modes"))
     if kept is None or available is None or kept >= available:
         return None
-    return int(kept), int(available)
+    return int(kept), int(available), record.get("converged")
+
+
+def truncation_converged(result) -> bool:
+    """Whether a run's curve may be drawn as converged: no truncation, or one judged converged.
+
+    Parameters
+    ----------
+    result : Result
+
+    Returns
+    -------
+    bool
+    """
+    cut = bath_truncation(result)
+    return cut is None or cut[2] is True
 
 
 def method_label(method: str, result=None) -> str:
@@ -597,11 +617,13 @@ def method_label(method: str, result=None) -> str:
     Returns
     -------
     str
-        E.g. "fock, truncated: 24 of 307 modes (not converged)".
+        E.g. "fock, truncated: 24 of 307 modes (not converged)", "(converged)" or
+        "(convergence not checked)".
     """
     cut = bath_truncation(result) if result is not None else None
     if cut:
-        return f"{method}, truncated: {cut[0]} of {cut[1]} modes (not converged)"
+        verdict = {True: "converged", False: "not converged"}.get(cut[2], "convergence not checked")
+        return f"{method}, truncated: {cut[0]} of {cut[1]} modes ({verdict})"
     return f"{method} (simulated)"
 
 

@@ -46,20 +46,26 @@ def run(scenario, method: str | None = None, **options) -> Result:
     return result_of(solver_for(scenario, method, **options))
 
 
-def result_of(solver) -> Result:
+def result_of(solver, check_truncation: bool = False) -> Result:
     """Run a solver and assemble its Result.
 
     Parameters
     ----------
     solver : Solver
         A solver for a loaded scenario (`sim.solvers.solver_for`).
+    check_truncation : bool, optional
+        Also check the method's own truncation by its finer runs (`Solver.convergence`, which
+        records its verdict in the evolution's details) before assembling (default False).
 
     Returns
     -------
     Result
         `assemble(solver.name, solver.scenario, solver.run())`.
     """
-    return assemble(solver.name, solver.scenario, solver.run())
+    evolution = solver.run()
+    if check_truncation:
+        solver.convergence(evolution.times, evolution)
+    return assemble(solver.name, solver.scenario, evolution)
 
 
 def assemble(method: str, scenario: Scenario, evo: Evolution) -> Result:

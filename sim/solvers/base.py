@@ -421,6 +421,30 @@ class Solver:
         """
         return None
 
+    def convergence(self, times, evolution: "Evolution | None" = None,
+                    tolerance: float = 1e-3) -> dict | None:
+        """Change of the results on refining the method's own truncation, or None if it has none.
+
+        Overridden by methods whose truncation is checked by finer runs of their own (fock:
+        one more quantum, more modes, more directions); such a method also records the verdict
+        in ``evolution.details["convergence"]`` and ``details["truncation"]["converged"]``.
+
+        Parameters
+        ----------
+        times : ndarray
+            Sample times (time units).
+        evolution : Evolution, optional
+            This solver's run over `times`.
+        tolerance : float, optional
+            Largest change of P_e (absolute) and of a rate (relative) called converged.
+
+        Returns
+        -------
+        dict or None
+            None in the base class (nothing to check).
+        """
+        return None
+
     def estimate(self) -> Estimate:
         """Size of the run (overridden by solvers with large discretisations).
 

@@ -37,6 +37,9 @@ from ..solvers.base import refusal
 
 #: methods in the order they are run and written
 COMPARED = METHOD_NAMES
+#: a method's own truncation check (`Solver.convergence`) costs about this many runs of it (fock:
+#: one more quantum, 1.5x the modes, more directions); run when that fits the budget
+CONVERGENCE_RUNS = 4
 
 
 @dataclass
@@ -112,12 +115,18 @@ def plan_method(scenario, method: str, budget: float, progress: bool = False):
     return solver, estimate, None
 
 
-def run_planned(solver):
+def run_planned(solver, check_truncation: bool = False):
     """Run one planned solver: its Result, or the one-line reason it failed.
+
+    With `check_truncation` the method's own truncation is checked by its finer runs
+    (`Solver.convergence`) before the result is assembled, so the figure and the summary say
+    whether a truncated bath is converged.
 
     Parameters
     ----------
     solver : Solver
+    check_truncation : bool, optional
+        Run `solver.convergence` too (default False).
 
     Returns
     -------
@@ -127,7 +136,7 @@ def run_planned(solver):
         error (an integrator's, a numerical one, MemoryError), its type and message.
     """
     try:
-        return result_of(solver), None
+        return result_of(solver, check_truncation), None
     except ScenarioError as exc:
         return None, "refused while running: " + _problems(exc)
     except ResourceError as exc:
@@ -185,7 +194,9 @@ def compare_methods(scenario, budget: float = COMPARE_BUDGET_SECONDS, *, progres
     for method, solver in plans.items():
         seconds = estimates[method]["seconds"]
         _say(quiet, f"running {method}" + (f" (estimated {seconds:.2g} s)" if seconds else ""))
-        result, reason = run_planned(solver)
+        # the truncation check costs about CONVERGENCE_RUNS runs more: only within the budget
+        affordable = seconds is not None and CONVERGENCE_RUNS * seconds <= budget
+        result, reason = run_planned(solver, check_truncation=affordable)
         if result is None:
             failed[method] = reason
             _say(quiet, f"{method} {reason}")
@@ -244,7 +255,8 @@ def compare_summary(scenario, comparison: Comparison, curves: dict) -> dict:
         units, given under "units", natural units otherwise; None where withheld), "fits"
         (method -> the fit's verdict and reason), "max_difference_from_exact"
         (method -> largest absolute difference of the excited population from exact; None
-        without an exact run), "warnings" (method -> list) and "scenario".
+        without an exact run), "warnings" (method -> list), "truncation" (method -> its
+        truncated bath and convergence verdict, `truncation_entry`) and "scenario".
     """
     results = comparison.results
     reference = curves.get(REFERENCE)
@@ -268,6 +280,8 @@ def compare_summary(scenario, comparison: Comparison, curves: dict) -> dict:
             {m: float(np.max(np.abs(c - reference))) for m, c in curves.items() if m != REFERENCE}
             if reference is not None else None),
         "warnings": {m: r.warnings for m, r in results.items()},
+        "truncation": {m: truncation_entry(r) for m, r in results.items()
+                       if truncation_entry(r) is not None},
         "scenario": dict(scenario.source),
     }
     if scenario.units is not None:
@@ -275,6 +289,27 @@ def compare_summary(scenario, comparison: Comparison, curves: dict) -> dict:
         summary["units"] = {"t": scenario.units.column_unit("t"), "rate_golden_rule": unit,
                             "rate_fitted": unit}
     return summary
+
+
+def truncation_entry(result) -> dict | None:
+    """A method's bath truncation and its convergence check, for the compare summary.
+
+    Parameters
+    ----------
+    result : Result
+
+    Returns
+    -------
+    dict or None
+        The solver's truncation record (kept, of, what, converged, key) with the checks of its
+        convergence run (`Solver.convergence`) under "convergence" where it ran; None for a
+        method that truncates nothing.
+    """
+    stats = result.summary.get("stats", {})
+    record = stats.get("truncation")
+    if record is None or record.get("kept", 0) >= record.get("of", 0):
+        return None
+    return {**record, **({"convergence": stats["convergence"]} if "convergence" in stats else {})}
 
 
 def write_comparison(scenario, comparison: Comparison, stage: Path, fmt: str = "png",

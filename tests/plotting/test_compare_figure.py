@@ -74,14 +74,32 @@ def test_truncated_fock_bath_is_dashed_and_labelled(results):
     assert top_lines(fig)["exact"].get_linestyle() != NOT_CONVERGED
 
 
+def with_truncation(result, **record):
+    """The result with its stats' truncation record changed."""
+    stats = result.summary["stats"]
+    stats = dict(stats, truncation=dict(stats["truncation"], **record))
+    return dataclasses.replace(result, summary=dict(result.summary, stats=stats))
+
+
 def test_fock_keeping_every_mode_is_drawn_as_converged(results):
     fock = results["fock-1d-truncated"]
-    stats = dict(fock.summary["stats"], box_modes=fock.summary["stats"]["fock_modes"])
-    whole = dataclasses.replace(fock, summary=dict(fock.summary, stats=stats))
+    whole = with_truncation(fock, of=fock.summary["stats"]["truncation"]["kept"])
     curves = {"exact": np.exp(-0.02 * fock.times), "fock": fock.excited}
     fig = compare_figure(fock.scenario, fock.times, curves, results={"fock": whole})
     line = top_lines(fig)["fock"]
     assert line.get_linestyle() != NOT_CONVERGED and "truncated" not in line.get_label()
+
+
+@pytest.mark.parametrize("converged, dashed, verdict", [
+    (True, False, "(converged)"), (False, True, "(not converged)"),
+    (None, True, "(convergence not checked)")])
+def test_a_truncated_bath_is_drawn_by_its_convergence_verdict(results, converged, dashed, verdict):
+    fock = with_truncation(results["fock-1d-truncated"], converged=converged)
+    curves = {"exact": np.exp(-0.02 * fock.times), "fock": fock.excited}
+    fig = compare_figure(fock.scenario, fock.times, curves, results={"fock": fock})
+    line = top_lines(fig)["fock"]
+    assert (line.get_linestyle() == NOT_CONVERGED) == dashed
+    assert line.get_label().endswith(verdict) and "truncated: 6 of" in line.get_label()
 
 
 def test_a_method_left_out_is_named_with_its_reason(results, curves):

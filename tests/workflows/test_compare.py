@@ -98,10 +98,10 @@ def test_a_method_failing_while_running_is_that_methods_failure(make_scenario, t
 
     real_result_of, failing = compare.result_of, method
 
-    def failing_result_of(solver):
+    def failing_result_of(solver, *args):
         if solver.name == failing:
             raise RuntimeError("integrator gave up (injected)")
-        return real_result_of(solver)
+        return real_result_of(solver, *args)
 
     monkeypatch.setattr(compare, "result_of", failing_result_of)
     s = load_scenario(make_scenario(COMPARE, t_max=100.0, samples=11))
@@ -161,3 +161,17 @@ def test_compare_fails_only_when_no_method_gives_a_result(make_scenario, tmp_pat
 def test_compare_refuses_a_full_folder_without_force(folder, make_scenario):
     with pytest.raises(OutputExists, match="--force"):
         compare_to_folder(load_scenario(make_scenario(COMPARE)), folder)
+
+
+def test_compare_checks_the_fock_truncation_and_records_the_verdict(make_scenario, tmp_path):
+    # fock keeps fewer modes than its box holds: compare runs its convergence check (more modes)
+    # within the budget and records the verdict; the figure and the table follow it
+    s = load_scenario(make_scenario(COMPARE, t_max=100.0, samples=11))
+    compare_to_folder(s, tmp_path / "out")
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
+    record = summary["truncation"]["fock"]
+    assert record["kept"] < record["of"] and record["key"] == "bath.fock_modes"
+    checks = {c["key"]: c for c in record["convergence"]["checks"]}
+    assert checks["bath.fock_modes"]["values"][1] > checks["bath.fock_modes"]["values"][0]
+    assert record["converged"] is (record["convergence"]["verdict"] == "converged")
+    assert "exact" not in summary["truncation"]
