@@ -23,7 +23,7 @@ from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 #: the benchmark scripts, in the order they are run
-BENCHMARKS = ("golden_rule_speed.py", "exact_vs_qutip.py")
+BENCHMARKS = ("golden_rule_speed.py", "exact_vs_qutip.py", "exact_large_3d.py")
 
 
 def benchmark_rows(script: str) -> list[dict]:

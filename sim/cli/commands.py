@@ -129,6 +129,11 @@ def print_run_summary(summary: dict, out: Path) -> None:
     if summary.get("trapped_population") is not None:
         line += f"; trapped (late-time plateau) {summary['trapped_population']:.4g}"
     print(line)
+    for side, state in (summary.get("bound_states") or {}).items():
+        if isinstance(state, dict):
+            print(f"  bound state {side} the band: energy {state['energy_from_level']:+.4g} from the "
+                  f"level, weight |<e|b>|^2 {state['weight']:.4g}, traps "
+                  f"{state['trapped_population']:.4g} of P_e [natural units]")
     velocity = summary.get("recoil_velocity_m_s")
     if velocity is not None and math.isfinite(velocity):
         print(f"  recoil velocity of one emission at rest {velocity:.4g} m/s")

@@ -385,7 +385,8 @@ class BathConfig:
     modes : int, optional
         Number of field modes of the 1D truncated bath.
     window : float, optional
-        Width of the band of bath momenta kept (momentum units).
+        Half-width of the resonance window of bath modes kept, |eps - E_e| <= window (energy
+        units; momentum units with c = 1).
     radial_nodes : int, optional
         3D: quadrature nodes in |k|.
     angular_nodes : int, optional

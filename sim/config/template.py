@@ -64,7 +64,8 @@ MEANINGS: dict[str, str] = {
     "bath.box_length": "1D truncated bath: length L_box of the periodic box (length); a box fakes "
                        "the continuum only for t < L_box",
     "bath.modes": "number of field modes of the truncated bath",
-    "bath.window": "width of the band of bath momenta kept (momentum)",
+    "bath.window": "half-width of the resonance window of bath modes kept, |eps - E_e| <= window "
+                   "(energy; given in momentum units in a lab scenario, c = 1)",
     "bath.radial_nodes": "3D truncated bath: quadrature nodes in |k|",
     "bath.angular_nodes": "3D truncated bath: quadrature nodes in cos(theta) about the packet "
                           "axis (one collective mode per node)",

@@ -85,6 +85,8 @@ def assemble(method: str, scenario: Scenario, evo: Evolution) -> Result:
         Its summary holds rate_golden_rule and rate_fitted (inverse time units; rate_fitted is
         None when the curve has no rate), fit (`RateFit.summary`: window, residual, verdict and
         reason), trapped_population (the late-time plateau of P_e, dimensionless, or None),
+        bound_states where the solver finds them (exact: energy from the level, weight and the
+        P_e they trap, below and above the band),
         lamb_shift (energy units), warnings, the scenario as read, resolved parameters,
         versions and stats.
     """
@@ -110,6 +112,7 @@ def assemble(method: str, scenario: Scenario, evo: Evolution) -> Result:
         "rate_fitted": fit.rate,
         "fit": fit.summary(),
         "trapped_population": fit.trapped_population,
+        **({"bound_states": evo.details["bound_states"]} if "bound_states" in evo.details else {}),
         "lamb_shift": evo.lamb_shift,
         "t_max": float(times[-1]),
         "samples": int(len(times)),

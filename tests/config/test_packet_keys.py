@@ -3,6 +3,7 @@ refusal of a shape by a method that does not evolve it."""
 
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from sim import ScenarioError, load_scenario
@@ -145,17 +146,21 @@ def test_a_method_without_the_shape_refuses_it_and_names_those_with_it(monkeypat
 
 
 def test_bundled_which_path_scenario_shows_a_visible_loss_of_coherence():
-    # the two copies are one file; k* = (M_e^2 - M_g^2) / (2 M_e) = 2001/2002 (relativistic
-    # two-body decay at rest, common practice) gives |cos(k* d)| = 0.5986 at d = 8.5, and the
-    # emitted wave train (length 1 / Gamma, c = 1) is far longer than d
+    # the two copies are one file; the relativistic two-body decay M_e -> M_g + a quantum of mass
+    # m at rest (common practice) gives k* = sqrt((M_e^2 - (M_g + m)^2)(M_e^2 - (M_g - m)^2)) /
+    # (2 M_e), here (1001 -> 1000 + 0.3) |cos(k* d)| = 0.247 at d = 8.5, and the emitted wave
+    # train (length 1 / Gamma, c = 1) is far longer than d
     root = Path(__file__).resolve().parents[2]
     bundled = root / "scenarios" / "which_path_1d.toml"
     assert bundled.read_bytes() == (root / "sim" / "data" / "which_path_1d.toml").read_bytes()
     s = load_scenario(bundled)
-    assert s.packet.shape == "two-lobe" and s.run.method == "perturbative"
+    assert s.packet.shape == "two-lobe" and s.run.method == "exact"
     k = rest_emitted_momentum(s)
-    assert k == pytest.approx(2001 / 2002, rel=1e-9)
+    e, g, m = 1001.0, 1000.0, 0.3
+    assert k == pytest.approx(np.sqrt((e * e - (g + m) ** 2) * (e * e - (g - m) ** 2)) / (2 * e),
+                              rel=1e-9)
     d, key = coherence_distance(s)
     assert key == "packet.separation"
-    assert float(static_kick_visibility(k, d, 1)) == pytest.approx(0.5986, abs=1e-4)
+    assert float(static_kick_visibility(k, d, 1)) == pytest.approx(abs(np.cos(k * 8.5)), abs=1e-12)
+    assert float(static_kick_visibility(k, d, 1)) == pytest.approx(0.2474, abs=1e-3)
     assert rest_rate(s) * d < 0.01

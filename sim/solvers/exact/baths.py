@@ -26,6 +26,11 @@ the |k| interval whose energies fall in the shell, by a SHELL_POINTS-point Gauss
 (the energy is convex in |k| at fixed u, so that interval is found by bisection on at most two
 monotone pieces).
 
+Automatic truncation: a band too large for the mode budget is cut to a resonance window around
+the on-shell emission only where that leaves the physics alone (`window_hazards`); a strongly
+coupled level, a level near a band edge (bound state, threshold) or a broad packet keeps the
+whole band up to the cutoff, within memory (`full_band_guard`, then the run's estimate).
+
 Units: hbar = c = 1; momenta, energies in the energy unit, lengths and times in its inverse.
 """
 
@@ -36,16 +41,20 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
+from ...errors import ResourceError
 from ...physics.field import Field, field_for, packet_for
 from ...physics.golden_rule import EMISSION, channels_1d, coupling_density, packet_rate
 from ...physics.models import EXCITED, GROUND, COMModel, model_for
 from ...physics.quadrature import gauss_legendre, gauss_legendre_on
+from ..base import MEMORY_SHARE, available_memory
 from ..common import (
+    WEAK_COUPLING_LIMIT,
     box_return_time,
     emitted_speed,
     recurrence_warning,
     returning_box_length,
 )
+from .star import sector_lamb_shift
 
 #: the bath must outlast t_max by this factor (box return time, 3D shell recurrence)
 RECURRENCE_MARGIN = 1.25
@@ -69,6 +78,16 @@ RESOLUTION_POINTS = 4.0
 #: Gauss-Legendre points per (shell, u) node for the |k| integrals; bisection steps
 SHELL_POINTS = 4
 BISECTION_STEPS = 60
+#: a window distorts the physics when the level lies within this many max(Gamma, |Lamb shift|)
+#: of a band edge (a bound state or threshold nearby)
+EDGE_REACH = 5.0
+#: a window distorts the reduced COM state when the off-window Lamb shift varies across the
+#: packet (p0 to p0 + 2 sigma_p) by more than this phase over t_max (radians)
+PHASE_TOLERANCE = 0.1
+#: modes (1D) / energy shells (3D) of the coarse full-band sector that screens a window
+SCREEN_MODES = 2000
+#: bytes per bath mode of a sector's arrays (six float64 arrays), for the guard of a full band
+SECTOR_MODE_BYTES = 48.0
 
 
 @dataclass(frozen=True)
@@ -149,6 +168,9 @@ class Bath:
         3D Gauss-Legendre nodes in u = cos theta (0 in 1D).
     notes : tuple of str, optional
         Warnings about the discretisation, for the run's summary.
+    cutoff_is_model : bool, optional
+        True when the scenario fixes field.cutoff for a point-like detector (F = 1): the cutoff
+        then defines the coupling, it is not a truncation to refine (default False).
     """
 
     dimensions: int
@@ -161,6 +183,7 @@ class Bath:
     stride: int = 1
     angular_nodes: int = 0
     notes: tuple[str, ...] = ()
+    cutoff_is_model: bool = False
 
     @property
     def mode_count(self) -> int:
@@ -219,11 +242,15 @@ def bath_for(scenario, t_max: float) -> Bath:
 
 
 def refined_keys(bath: Bath, factor: float = 1.5) -> dict:
-    """Dotted scenario keys that refine `bath` by `factor` (for `recoilsim run --check`).
+    """Dotted scenario keys that refine every truncation of `bath` by `factor` (`run --check`).
 
-    field.cutoff x factor and bath.window x factor (when a window is set); 1D: bath.box_length
-    x factor; 3D: bath.radial_nodes = ceil(factor x band / shell width) with band the widest
-    sector's mode-energy range, bath.angular_nodes and bath.sectors x factor (rounded up).
+    - bath.window x factor when the bath has a window (set or automatic);
+    - bath.modes = ceil(factor^2 x the largest sector's mode count): at least the refined full
+      band (box and cutoff both x factor), so that a full-band bath stays full-band;
+    - field.cutoff x factor unless the cutoff is part of the model (`Bath.cutoff_is_model`);
+    - 1D: bath.box_length x factor and bath.sectors = ceil(factor x sector count);
+    - 3D: bath.radial_nodes = ceil(factor x band / shell width) with band the widest sector's
+      mode-energy range, bath.angular_nodes and bath.sectors x factor (rounded up).
 
     Parameters
     ----------
@@ -236,7 +263,10 @@ def refined_keys(bath: Bath, factor: float = 1.5) -> dict:
     dict
         Dotted key -> new value (natural units).
     """
-    keys = {"field.cutoff": bath.cutoff * factor}
+    keys = {"bath.modes": math.ceil(factor * factor * max(bath.mode_count, 1)),
+            "bath.sectors": math.ceil(factor * len(bath.sectors))}
+    if not bath.cutoff_is_model:
+        keys["field.cutoff"] = bath.cutoff * factor
     if bath.window is not None:
         keys["bath.window"] = bath.window * factor
     if bath.dimensions == 1:
@@ -246,8 +276,163 @@ def refined_keys(bath: Bath, factor: float = 1.5) -> dict:
                    if s.mode_energies.size)
         keys["bath.radial_nodes"] = math.ceil(factor * band / bath.spacing)
         keys["bath.angular_nodes"] = math.ceil(factor * bath.angular_nodes)
-        keys["bath.sectors"] = math.ceil(factor * len(bath.sectors))
     return keys
+
+
+def cutoff_is_model(scenario) -> bool:
+    """True when field.cutoff is given for a point-like detector (field.smearing = 0).
+
+    Then F(k) = 1 up to K: the cutoff defines the coupling (the Lamb shift and a bound state
+    depend on it), so it is a model parameter, not a truncation to refine.
+
+    Parameters
+    ----------
+    scenario : Scenario
+
+    Returns
+    -------
+    bool
+    """
+    return scenario.field.cutoff is not None and scenario.field.smearing == 0
+
+
+# --- when a resonance window would distort the physics ------------------------------------------
+
+
+def screening_sector(model: COMModel, field: Field, P: float, dimensions: int,
+                     angular_nodes: int = ANGULAR_NODES) -> tuple[Sector, float]:
+    """A coarse full-band sector at P, to screen a resonance window cheaply.
+
+    1D: `box_sector` at spacing 2 K / SCREEN_MODES; 3D: `shell_sector` with shells of width
+    band / SCREEN_MODES (`_band`).  Its off-resonant sums (Lamb shift, band edges) are accurate
+    to the coarse spacing; it is never evolved.
+
+    Parameters
+    ----------
+    model : COMModel
+    field : Field
+    P : float
+        Sector momentum (momentum units; |P| in 3D).
+    dimensions : int
+        1 or 3.
+    angular_nodes : int, optional
+        3D Gauss-Legendre nodes in cos theta (default ANGULAR_NODES).
+
+    Returns
+    -------
+    sector : Sector
+    shift : float
+        Its Lamb shift, the discrete principal-value sum less the ladder offset
+        (`ladder_correction`; energy units).
+    """
+    if dimensions == 1:
+        spacing = 2 * field.cutoff / SCREEN_MODES
+        sector = box_sector(model, field, P, spacing, 1.0, None)
+        correction = ladder_correction(model, field, sector, spacing)
+    else:
+        width = _band(model, field, abs(P)) / SCREEN_MODES
+        sector = shell_sector(model, field, abs(P), 1.0, width, angular_nodes, None)
+        correction = 0.0
+    shift = sector_lamb_shift(sector.level_energy, sector.mode_energies, sector.couplings)
+    return sector, shift - correction
+
+
+def _outside_shift(sector: Sector, window: float) -> float:
+    """The part of the discrete Lamb shift from the modes outside |eps - E_e| <= window."""
+    detuning = sector.level_energy - sector.mode_energies
+    outside = np.abs(detuning) > window
+    return float(np.sum(np.abs(sector.couplings[outside]) ** 2 / detuning[outside]))
+
+
+def window_hazards(scenario, model: COMModel, field: Field, window: float, t_max: float,
+                   angular_nodes: int = ANGULAR_NODES) -> list[str]:
+    """Why a resonance window |eps - E_e| <= window would distort the run (empty: it would not).
+
+    - strong coupling: Gamma / Omega > WEAK_COUPLING_LIMIT (Gamma the packet's golden-rule rate,
+      Omega the gap): the dressed level, the non-exponential decay and any bound state are set
+      by the whole band, not by the line;
+    - a band edge near the level: the distance from E_e(p0) to the bottom or top of the band is
+      below EDGE_REACH max(Gamma, |Delta|), Delta the full-band Lamb shift (a bound state or a
+      threshold tail, whose weight depends on all modes);
+    - a broad packet: the Lamb shift of the dropped modes, Delta_out(P), varies across the packet
+      so that |Delta_out(p0 + 2 sigma_p) - Delta_out(p0)| t_max > PHASE_TOLERANCE: the sectors'
+      relative phases, hence the reduced COM state, would be wrong.
+
+    Each is judged on a coarse full-band sector (`screening_sector`).
+
+    Parameters
+    ----------
+    scenario : Scenario
+    model : COMModel
+    field : Field
+    window : float
+        The window that would be used (energy units).
+    t_max : float
+        Last sample time (time units).
+    angular_nodes : int, optional
+        3D nodes in cos theta of the screening sector.
+
+    Returns
+    -------
+    list of str
+        One phrase per hazard.
+    """
+    out = []
+    rate, gap = packet_rate(scenario), scenario.detector.gap
+    if rate / gap > WEAK_COUPLING_LIMIT:
+        out.append(f"strong coupling (Gamma/Omega = {rate / gap:.3g} > {WEAK_COUPLING_LIMIT:g})")
+    p0, sigma = scenario.mean_momentum, packet_for(scenario).momentum_std
+    dims = scenario.dimensions
+    sector, shift = screening_sector(model, field, p0, dims, angular_nodes)
+    if sector.mode_energies.size:
+        edge = min(abs(sector.level_energy - sector.mode_energies.min()),
+                   abs(sector.mode_energies.max() - sector.level_energy))
+        reach = EDGE_REACH * max(rate, abs(shift))
+        if edge < reach:
+            out.append(f"the level lies {edge:.3g} from a band edge, within {EDGE_REACH:g} "
+                       f"max(Gamma, |Lamb shift|) = {reach:.3g} (a bound state or threshold)")
+    wide, _ = screening_sector(model, field, p0 + 2 * sigma, dims, angular_nodes)
+    phase = abs(_outside_shift(wide, window) - _outside_shift(sector, window)) * t_max
+    if phase > PHASE_TOLERANCE:
+        out.append(f"a broad packet (the dropped modes' Lamb shift varies by {phase:.3g} rad over "
+                   f"t_max across 2 sigma_p, above {PHASE_TOLERANCE:g})")
+    return out
+
+
+def full_band_guard(modes: int, sectors: int, hazards: list[str], keys: str) -> None:
+    """Refuse a full band the physics needs (`window_hazards`) whose bath alone cannot fit.
+
+    The bath's arrays take SECTOR_MODE_BYTES per mode and sector; the run needs more
+    (`ExactSolver.estimate`, checked before evolving), so this only stops the build itself.
+
+    Parameters
+    ----------
+    modes : int
+        Modes (1D) or nodes (3D) per sector of the full band (dimensionless count).
+    sectors : int
+        Sectors (dimensionless count).
+    hazards : list of str
+        Why a window would distort the run.
+    keys : str
+        The size keys to name, e.g. "bath.box_length".
+
+    Raises
+    ------
+    ResourceError
+        If modes x sectors x SECTOR_MODE_BYTES > MEMORY_SHARE x available memory.
+    """
+    need, limit = SECTOR_MODE_BYTES * modes * sectors, MEMORY_SHARE * available_memory()
+    if need > limit:
+        raise ResourceError(
+            f"bath.modes: the whole band needs {modes:,} modes per sector x {sectors} sectors "
+            f"({need / 2**30:.3g} GiB for the bath alone, more than the {limit / 2**30:.3g} GiB "
+            f"it may use), and a resonance window would distort this run ({'; '.join(hazards)}); "
+            f"lower {keys}, or set bath.window (or bath.modes) to accept a window knowingly")
+
+
+def _hazard_note(hazards: list[str], what: str, key: str) -> str:
+    """The note of a bath that keeps (or, by the user's choice, drops) the whole band."""
+    return f"bath: {what} because of {'; '.join(hazards)}; {key}"
 
 
 # --- 1D: periodic box -------------------------------------------------------------------------
@@ -410,7 +595,10 @@ def box_bath(scenario, t_max: float) -> Bath:
     |psi(P)|^2 normalised to sum 1; modes k = n dk, 0 < |k| <= cutoff (`box_sector`).  When the
     full band, 2 floor(K / dk) modes, exceeds the budget (bath.modes, default MODE_BUDGET) and no
     bath.window is given, the modes are restricted to `automatic_window` at the packet's mean
-    momentum.  The recurrence time is L / (1 + v), v = `emitted_speed`.
+    momentum, unless that window would distort the run (`window_hazards`: strong coupling, a
+    band edge near the level, a broad packet) and bath.modes is not given: then the whole band
+    is kept, and refused (`full_band_guard`) if the bath alone cannot fit in memory.  The
+    recurrence time is L / (1 + v), v = `emitted_speed`.
 
     Parameters
     ----------
@@ -422,6 +610,11 @@ def box_bath(scenario, t_max: float) -> Bath:
     -------
     Bath
         With the discretisation warnings (`resolution_notes`) in `notes`.
+
+    Raises
+    ------
+    ResourceError
+        If the whole band is needed and its bath alone cannot fit (`full_band_guard`).
     """
     model, field = bath_model(scenario)
     packet, cfg = packet_for(scenario), scenario.bath
@@ -437,14 +630,27 @@ def box_bath(scenario, t_max: float) -> Bath:
     full_band = 2 * math.floor(field.cutoff / spacing)
     if window is None and full_band > budget:
         window = automatic_window(model, field, scenario.mean_momentum, spacing, budget)
-        notes.append(f"bath: the full band 0 < |k| <= {field.cutoff:.4g} would need {full_band:,} "
-                     f"modes per sector; modes restricted to the resonance window "
-                     f"|eps - E_e| <= {window:.4g} (bath.window); the Lamb shift then depends on "
-                     "the window")
+        hazards = window_hazards(scenario, model, field, window, t_max)
+        if hazards and cfg.modes is None:
+            full_band_guard(full_band + 1, len(P), hazards, "bath.box_length (or bath.sectors)")
+            notes.append(_hazard_note(hazards, f"the whole band 0 < |k| <= {field.cutoff:.4g} kept "
+                                      f"({full_band:,} modes per sector, above the {budget:,} at "
+                                      "which a resonance window is chosen)",
+                                      "set bath.window or bath.modes to use a window instead"))
+            window = None
+        elif hazards:
+            notes.append(_hazard_note(hazards, f"bath.modes = {budget:,} restricts the modes to the "
+                                      f"window |eps - E_e| <= {window:.4g}, which distorts the run",
+                                      f"raise bath.modes to {full_band + 1:,} for the whole band"))
+        else:
+            notes.append(f"bath: the full band 0 < |k| <= {field.cutoff:.4g} would need "
+                         f"{full_band:,} modes per sector; modes restricted to the resonance "
+                         f"window |eps - E_e| <= {window:.4g} (bath.window); the Lamb shift then "
+                         "depends on the window")
     sectors = tuple(box_sector(model, field, p, spacing, w, window) for p, w in zip(P, weights))
     speed = emitted_speed(model, scenario)
     bath = Bath(1, sectors, field.cutoff, spacing, box_return_time(length, speed), window, length, stride,
-                notes=tuple(notes))
+                notes=tuple(notes), cutoff_is_model=cutoff_is_model(scenario))
     return replace(bath, notes=bath.notes + tuple(resolution_notes(scenario, model, bath, t_max)))
 
 
@@ -604,7 +810,9 @@ def shell_bath(scenario, t_max: float) -> Bath:
     when bath.radial_nodes is given (band: the mode-energy range of the fastest sector, `_band`),
     else `default_shell_width(t_max)`.  When band / width exceeds the budget (bath.modes, default
     MODE_BUDGET) and no bath.window is given, the shells are restricted to the window
-    0.5 budget width.  The recurrence time is 2 pi / width.
+    0.5 budget width, unless that window would distort the run (`window_hazards`) and
+    bath.modes is not given: then the whole band is kept, and refused (`full_band_guard`) if the
+    bath alone cannot fit in memory.  The recurrence time is 2 pi / width.
 
     Parameters
     ----------
@@ -616,6 +824,11 @@ def shell_bath(scenario, t_max: float) -> Bath:
     -------
     Bath
         With the discretisation warnings (`resolution_notes`) in `notes`.
+
+    Raises
+    ------
+    ResourceError
+        If the whole band is needed and its bath alone cannot fit (`full_band_guard`).
 
     References
     ----------
@@ -630,16 +843,32 @@ def shell_bath(scenario, t_max: float) -> Bath:
     budget = cfg.modes or MODE_BUDGET
     window = cfg.window
     notes = []
-    if window is None and band / width > budget:
+    shells = band / width
+    if window is None and shells > budget:
         window = 0.5 * budget * width
-        notes.append(f"bath: the full band ({band:.4g} wide) would need {band / width:,.0f} energy "
-                     f"shells per sector; shells restricted to the resonance window "
-                     f"|eps - E_e| <= {window:.4g} (bath.window); the Lamb shift then depends on "
-                     "the window")
+        hazards = window_hazards(scenario, model, field, window, t_max, angular)
+        if hazards and cfg.modes is None:
+            full_band_guard(math.ceil(shells) * angular, len(P), hazards,
+                            "bath.radial_nodes (or bath.angular_nodes, bath.sectors)")
+            notes.append(_hazard_note(hazards, f"the whole band ({band:.4g} wide, {shells:,.0f} "
+                                      f"energy shells per sector, above the {budget:,} at which a "
+                                      "resonance window is chosen) kept",
+                                      "set bath.window or bath.modes to use a window instead"))
+            window = None
+        elif hazards:
+            notes.append(_hazard_note(hazards, f"bath.modes = {budget:,} restricts the shells to "
+                                      f"the window |eps - E_e| <= {window:.4g}, which distorts the "
+                                      f"run", f"raise bath.modes to {math.ceil(shells):,} for the "
+                                      "whole band"))
+        else:
+            notes.append(f"bath: the full band ({band:.4g} wide) would need {shells:,.0f} energy "
+                         f"shells per sector; shells restricted to the resonance window "
+                         f"|eps - E_e| <= {window:.4g} (bath.window); the Lamb shift then depends "
+                         "on the window")
     sectors = tuple(shell_sector(model, field, float(p), float(w), width, angular, window)
                     for p, w in zip(P, weights))
     bath = Bath(3, sectors, field.cutoff, width, 2 * np.pi / width, window,
-                angular_nodes=angular, notes=tuple(notes))
+                angular_nodes=angular, notes=tuple(notes), cutoff_is_model=cutoff_is_model(scenario))
     return replace(bath, notes=bath.notes + tuple(resolution_notes(scenario, model, bath, t_max)))
 
 
@@ -751,10 +980,33 @@ def discreteness_correction(scenario, bath: Bath, sector: Sector) -> float:
     if bath.dimensions == 3:
         return 0.0
     model, field = bath_model(scenario)
+    return ladder_correction(model, field, sector, bath.spacing)
+
+
+def ladder_correction(model: COMModel, field: Field, sector: Sector, spacing: float) -> float:
+    """The 1D ladder term sum_c pi J_c cot(pi delta_c / D_c) of a box sector (energy units).
+
+    See `discreteness_correction`: J_c = |g_c|^2 / D_c at the mode nearest each on-shell
+    emission c, D_c the local ladder spacing, delta_c = E_e - eps_c.
+
+    Parameters
+    ----------
+    model : COMModel
+    field : Field
+    sector : Sector
+        A 1D box sector (`box_sector`).
+    spacing : float
+        Its lattice spacing dk (momentum units).
+
+    Returns
+    -------
+    float
+        The correction (energy units); 0 where a channel's neighbours are not in the sector.
+    """
     index = {int(n): i for i, n in enumerate(sector.lattice)}
     total = 0.0
     for channel, _ in _on_shell(model, field, sector.momentum):
-        root = round(-channel.kick / bath.spacing)
+        root = round(-channel.kick / spacing)
         near = [n for n in (root - 1, root, root + 1) if n in index]
         if not near:
             continue

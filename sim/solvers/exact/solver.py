@@ -33,6 +33,7 @@ from ...physics.models import model_for
 from ..base import SAMPLE_BYTES, Estimate, Evolution, Solver, credit
 from ..common import SNAPSHOTS, axis_grid, last_sample_time, masked, snapshot_indices
 from .baths import Bath, bath_for, discreteness_correction, lamb_sector, refined_keys
+from .bound import bound_states, packet_bound_states
 from .observables import (STATE_ELEMENTS, ReducedState1D, axis_density, direction_phases,
                           lattice_density)
 from .star import CHUNK_ELEMENTS, DUHAMEL_NODES, duhamel_substeps, sector_lamb_shift, star_spectrum
@@ -225,10 +226,10 @@ class ExactSolver(Solver):
                         resize=lambda count: memory(count)[1])
 
     def refined(self) -> "ExactSolver":
-        """The same solver with the bath refined x1.5 (`refined_keys`).
+        """The same solver with every truncation of its bath refined x1.5 (`refined_keys`).
 
-        Cutoff and window (when set) x1.5; 1D: box length x1.5; 3D: radial nodes, angular nodes and
-        sectors x1.5.
+        The window (set or automatic), the modes, the sectors, and the box length (1D) or the
+        radial and angular nodes (3D); the cutoff only where it is not part of the model.
 
         Returns
         -------
@@ -279,8 +280,8 @@ class ExactSolver(Solver):
         s = self.scenario
         bath = self.bath()
         snaps = snapshot_indices(len(times))
-        residues = []
-        spectra = (_spectrum(sec, residues) for sec in _progress(bath.sectors, self.progress))
+        residues, bound = [], []
+        spectra = (_spectrum(sec, residues, bound) for sec in _progress(bath.sectors, self.progress))
         evolve_sectors = _evolve_1d if bath.dimensions == 1 else _evolve_3d
         evo = evolve_sectors(s, bath, spectra, times, snaps)
         lamb, lowest = lamb_shift(s, bath)
@@ -291,7 +292,8 @@ class ExactSolver(Solver):
                            recurrence_time=bath.recurrence_time, window=bath.window,
                            box_length=bath.box_length, sector_stride=bath.stride,
                            lamb_shift_lowest_modes=lowest,
-                           residue_sum_error=max(residues))
+                           residue_sum_error=max(residues),
+                           bound_states=packet_bound_states(bath.sectors, bound))
         return evo
 
     def _warnings(self, bath: Bath, lowest: float) -> list[str]:
@@ -322,10 +324,12 @@ def _progress(sectors, enabled: bool):
     return tqdm(sectors, desc="exact", unit="sector", leave=False)
 
 
-def _spectrum(sector, residues: list):
-    """The sector's star spectrum; its norm check |sum_j w_j - 1| is appended to `residues`."""
+def _spectrum(sector, residues: list, bound: list):
+    """The sector's star spectrum; its norm check |sum_j w_j - 1| is appended to `residues` and
+    its bound states (`bound_states`) to `bound`."""
     spectrum = star_spectrum(sector.level_energy, sector.mode_energies, sector.couplings)
     residues.append(abs(spectrum.residue_sum - 1))
+    bound.append(bound_states(sector, spectrum))
     return spectrum
 
 
