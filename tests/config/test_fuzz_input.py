@@ -4,6 +4,7 @@ with one line per problem — never another exception."""
 import copy
 import tomllib
 
+import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
@@ -46,14 +47,26 @@ def mutated(draw):
     return raw
 
 
-@settings(max_examples=3000, deadline=None, suppress_health_check=list(HealthCheck))
-@given(mutated())
-def test_any_mutation_loads_or_names_its_problems(raw):
+def mutation_loads_or_names_its_problems(raw):
+    """A mutated scenario either loads or raises ScenarioError naming its problems."""
     try:
         load_scenario(raw)
     except ScenarioError as exc:
         assert exc.problems and all(isinstance(p, str) and p.strip() for p in exc.problems)
         assert all("\n" not in p for p in exc.problems)
+
+
+@settings(max_examples=300, deadline=None, suppress_health_check=list(HealthCheck))
+@given(mutated())
+def test_any_mutation_loads_or_names_its_problems(raw):
+    mutation_loads_or_names_its_problems(raw)
+
+
+@pytest.mark.slow  # the heavy fuzz count
+@settings(max_examples=3000, deadline=None, suppress_health_check=list(HealthCheck))
+@given(mutated())
+def test_any_mutation_loads_or_names_its_problems_many(raw):
+    mutation_loads_or_names_its_problems(raw)
 
 
 @settings(max_examples=500, deadline=None, suppress_health_check=list(HealthCheck))
