@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import Callable
 
 from ..result.result import DRAWERS
-from .compare import compare_figure
+from .compare import coherence_compare_figure, compare_figure
 from .counter_rotating import counter_rotating_figure
 from .rates import rates_figure
 from .run_figures import (draw_coherence, draw_decay, draw_momentum, draw_purity,
@@ -104,7 +104,7 @@ def result_figures(result, folder: str | Path, *, fmt: str = "png", dpi: float =
 
 
 __all__ = ["DPI", "FIGURES", "FORMATS", "METHOD_COLOURS", "MODEL_COLOURS", "STAMP",
-           "compare_figure", "counter_rotating_figure", "draw_coherence", "draw_decay",
+           "coherence_compare_figure", "compare_figure", "counter_rotating_figure", "draw_coherence", "draw_decay",
            "draw_momentum",
            "draw_purity", "draw_recoil_map", "draw_variance", "figure_dpi", "figure_format",
            "figure_path", "rates_figure", "result_figures", "save", "stamp", "sweep_figure",

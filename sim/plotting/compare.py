@@ -1,9 +1,10 @@
 """compare.png: every method's excited population on one scenario, and per method its
-difference from exact.
+difference from exact; compare_coherence.png: every method's spatial coherence, where the
+scenario asks for it.
 
 Curves lying on top of each other keep distinct dashes and markers and are named in a note; a
-method whose bath is truncated and not judged converged (`style.truncation_converged`) is drawn dashed and labelled with the
-modes it kept; a method that did not run is named with the reason.
+method whose bath is truncated and not judged converged (`style.truncation_converged`) is drawn
+dashed and labelled with the modes it kept; a method that did not run is named with the reason.
 """
 
 from __future__ import annotations
@@ -118,5 +119,53 @@ def compare_figure(scenario, times, curves: dict, reference: str = REFERENCE, *,
     for ax, method in zip(panels, others):
         _residual_panel(ax, t, method, curves[method] - baseline, styles[method])
     (panels[-1] if len(panels) else top).set_xlabel(time_label(scenario))
+    stamp_for(fig, scenario)
+    return fig
+
+
+def coherence_compare_figure(scenario, results: dict, left_out: dict | None = None):
+    """compare_coherence.png: the spatial coherence of every method that reports it.
+
+    coherence(t) = |Tr(rho_COM(t) e^{iPd})| / |Tr(rho_COM(0) e^{iPd})| at the scenario's d, one
+    curve per method in its own style (dashed where its truncation is not judged converged), the
+    static-detector value after one emission as a reference where it applies, and a note naming
+    the methods without a curve.
+
+    Parameters
+    ----------
+    scenario : Scenario
+    results : dict
+        Method -> its Result (those with a coherence are drawn).
+    left_out : dict, optional
+        Method -> why it gave no result.
+
+    Returns
+    -------
+    matplotlib Figure
+        Stamped simulated.
+    """
+    from .run_figures import static_limit
+
+    fig, ax = new_figure()
+    drawn = {m: r for m, r in results.items() if r.coherence is not None}
+    for index, (method, result) in enumerate(drawn.items()):
+        known = np.isfinite(result.coherence)
+        style = method_style(method, truncation_converged(result))
+        ax.plot(in_output_units(scenario, "t", result.times[known]), result.coherence[known],
+                label=method_label(method, result), **style)
+    first = next(iter(drawn.values()), None)
+    limit = static_limit(first) if first is not None else None
+    if limit is not None:
+        ax.axhline(limit, color="0.35", lw=1.2, ls=":", label="static detector after one "
+                   f"emission: {limit:.3g}")
+    missing = {m: "no coherence computed" for m in results if m not in drawn}
+    lines = left_out_lines({**(left_out or {}), **missing})
+    if lines:
+        add_note(ax, lines, loc="center right")
+    ax.set_ylim(0.0, 1.08)
+    ax.set_xlabel(time_label(scenario))
+    ax.set_ylabel(r"coherence $|\mathrm{Tr}\,\rho_{\mathrm{COM}}\,e^{iPd}|$ (relative to t = 0)")
+    ax.set_title("spatial coherence, every method (simulated)", fontsize=10)
+    ax.legend(fontsize=LEGEND_SIZE, loc="upper right")
     stamp_for(fig, scenario)
     return fig

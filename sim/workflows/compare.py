@@ -29,7 +29,7 @@ from ..errors import ResourceError, ScenarioError
 from ..io.atomic import atomic_write_text
 from ..io.writers import csv_text, output_folder, write_json
 from ..physics.checks import load_scenario
-from ..plotting import DPI, compare_figure, figure_dpi, figure_format, save
+from ..plotting import DPI, coherence_compare_figure, compare_figure, figure_dpi, figure_format, save
 from ..plotting.compare import REFERENCE
 from ..result import result_of
 from ..solvers import solver_for
@@ -255,7 +255,8 @@ def compare_summary(scenario, comparison: Comparison, curves: dict) -> dict:
         units, given under "units", natural units otherwise; None where withheld), "fits"
         (method -> the fit's verdict and reason), "max_difference_from_exact"
         (method -> largest absolute difference of the excited population from exact; None
-        without an exact run), "warnings" (method -> list), "truncation" (method -> its
+        without an exact run), "warnings" (method -> list), "final_coherence" (method -> the
+        spatial coherence at t_max, where the scenario asks for it), "truncation" (method -> its
         truncated bath and convergence verdict, `truncation_entry`) and "scenario".
     """
     results = comparison.results
@@ -280,6 +281,8 @@ def compare_summary(scenario, comparison: Comparison, curves: dict) -> dict:
             {m: float(np.max(np.abs(c - reference))) for m, c in curves.items() if m != REFERENCE}
             if reference is not None else None),
         "warnings": {m: r.warnings for m, r in results.items()},
+        "final_coherence": {m: r.summary["final_coherence"] for m, r in results.items()
+                            if "final_coherence" in r.summary},
         "truncation": {m: truncation_entry(r) for m, r in results.items()
                        if truncation_entry(r) is not None},
         "scenario": dict(scenario.source),
@@ -314,7 +317,7 @@ def truncation_entry(result) -> dict | None:
 
 def write_comparison(scenario, comparison: Comparison, stage: Path, fmt: str = "png",
                      dpi: float = DPI) -> dict:
-    """Write compare.csv, compare.png and summary.json of a comparison into `stage`.
+    """Write compare.csv, compare.png (and compare_coherence.png) and summary.json into `stage`.
 
     Parameters
     ----------
@@ -340,6 +343,10 @@ def write_comparison(scenario, comparison: Comparison, stage: Path, fmt: str = "
                             left_out={**comparison.skipped, **comparison.failed})
     summary = compare_summary(scenario, comparison, curves)
     summary["figure"] = save(figure, stage / "compare", fmt, dpi).name
+    if any(r.coherence is not None for r in comparison.results.values()):
+        coherence = coherence_compare_figure(scenario, comparison.results,
+                                             {**comparison.skipped, **comparison.failed})
+        summary["coherence_figure"] = save(coherence, stage / "compare_coherence", fmt, dpi).name
     write_json(stage / "summary.json", summary)
     return summary
 

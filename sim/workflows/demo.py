@@ -15,7 +15,9 @@ from pathlib import Path
 from ..io.atomic import atomic_copy
 from ..io.writers import output_folder, write_json
 from ..physics.checks import load_scenario
-from ..plotting import DPI, figure_dpi, figure_format
+from ..config.registry import METHOD_NAMES
+from ..errors import ScenarioError
+from ..plotting import DPI, coherence_compare_figure, figure_dpi, figure_format, save
 from ..result import run
 from .compare import compare_to_folder
 from .rates import rates_report, write_rates_figure
@@ -164,7 +166,8 @@ def make_readme_figures(out: Path, fmt: str = "png", dpi: float = DPI) -> list[P
     Returns
     -------
     list of Path
-        The figures written, one per entry of `README_FIGURES` (NAME.<fmt>).
+        The figures written, one per entry of `README_FIGURES` (NAME.<fmt>), and the
+        which-path coherence of every method (coherence.<fmt>, `which_path_figure`).
     """
     fmt, dpi = figure_format(fmt), figure_dpi(dpi)
     out.mkdir(parents=True, exist_ok=True)
@@ -174,4 +177,28 @@ def make_readme_figures(out: Path, fmt: str = "png", dpi: float = DPI) -> list[P
         for name, source in README_FIGURES.items():
             atomic_copy(Path(tmp) / f"{source}.{fmt}", out / f"{name}.{fmt}")
             written.append(out / f"{name}.{fmt}")
+        figure = save(which_path_figure(), Path(tmp) / "coherence", fmt, dpi)
+        atomic_copy(figure, out / figure.name)
+        written.append(out / figure.name)
     return written
+
+
+def which_path_figure():
+    """The spatial coherence of the bundled which-path scenario by every method, one figure.
+
+    Each method runs on sim/data/which_path_1d.toml (`coherence_compare_figure`; a method that
+    refuses it is named in the figure).
+
+    Returns
+    -------
+    matplotlib Figure
+        Stamped simulated.
+    """
+    scenario = load_scenario(bundled("which_path_1d"))
+    results, left_out = {}, {}
+    for method in METHOD_NAMES:
+        try:
+            results[method] = run(scenario, method=method)
+        except ScenarioError as exc:
+            left_out[method] = "; ".join(exc.problems)
+    return coherence_compare_figure(scenario, results, left_out)

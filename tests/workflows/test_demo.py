@@ -27,3 +27,13 @@ def test_demo_writes_its_figures_and_data(tmp_path):
         rows = list(csv.DictReader(handle))
     assert len(rows) == 4 and all(r["status"] == "ok" for r in rows)
     assert not list(tmp_path.glob(".*"))
+
+
+@pytest.mark.slow  # builds the demo and runs the which-path scenario with every method (minutes)
+def test_figures_command_writes_every_readme_figure(tmp_path):
+    from sim.cli import main
+    from sim.workflows.demo import README_FIGURES
+
+    assert main(["figures", "--out", str(tmp_path / "figures")]) == 0
+    written = sorted(p.stem for p in (tmp_path / "figures").glob("*.png"))
+    assert written == sorted([*README_FIGURES, "coherence"])
