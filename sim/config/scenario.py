@@ -294,7 +294,7 @@ def parse_scenario(scenario: str | Path | Mapping[str, Any]) -> Scenario:
         path nor a mapping, or the file cannot be read as TOML.
     """
     if isinstance(scenario, (str, Path)):
-        raw = read_scenario_file(scenario)
+        raw = beside_the_file(read_scenario_file(scenario), Path(scenario))
     elif isinstance(scenario, Mapping):
         raw = _plain(scenario)
     else:
@@ -307,6 +307,28 @@ def parse_scenario(scenario: str | Path | Mapping[str, Any]) -> Scenario:
     if problems:
         raise ScenarioError(problems)
     return _build(tables, numeric.get("title", "untitled scenario"), raw, units)
+
+
+def beside_the_file(raw: dict, path: Path) -> dict:
+    """The raw scenario with a relative packet.amplitude_file read from the scenario's folder.
+
+    Parameters
+    ----------
+    raw : dict
+        The scenario as read from `path` (changed in place and returned).
+    path : Path
+        The scenario file.
+
+    Returns
+    -------
+    dict
+        `raw`, its packet.amplitude_file (when a relative path string) joined to path's folder.
+    """
+    packet = raw.get("packet")
+    name = packet.get("amplitude_file") if isinstance(packet, dict) else None
+    if isinstance(name, str) and name and not Path(name).is_absolute():
+        packet["amplitude_file"] = str(path.resolve().parent / name)
+    return raw
 
 
 def _plain(mapping: Mapping[str, Any]) -> dict:

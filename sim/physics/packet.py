@@ -727,7 +727,8 @@ def packet_from_config(config) -> Packet:
     ----------
     config : sim.config.schema.PacketConfig
         Width (length units), momentum (momentum units), shape, separation (length units),
-        phase (radians) and amplitude_file (a relative path is read from the current folder).
+        phase (radians) and amplitude_file (a path; relative paths in a scenario file are
+        taken from the file's folder when it is read, else from the current folder).
 
     Returns
     -------

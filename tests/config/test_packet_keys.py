@@ -164,3 +164,18 @@ def test_bundled_which_path_scenario_shows_a_visible_loss_of_coherence():
     assert float(static_kick_visibility(k, d, 1)) == pytest.approx(abs(np.cos(k * 8.5)), abs=1e-12)
     assert float(static_kick_visibility(k, d, 1)) == pytest.approx(0.2474, abs=1e-3)
     assert rest_rate(s) * d < 0.01
+
+
+def test_a_relative_amplitude_file_is_read_beside_the_scenario_file(tmp_path, monkeypatch):
+    # a scenario file's relative amplitude_file is taken from the file's own folder, whatever
+    # the current folder is (a dict scenario keeps the current folder)
+    folder = tmp_path / "scenarios"
+    folder.mkdir()
+    (folder / "a.csv").write_text("p,re,im\n-2,0,0\n0,1,0\n2,0,0\n")
+    (folder / "s.toml").write_text(
+        'title = "file packet"\n[detector]\nmodel = "newton-wigner"\nground_mass = 1.0\n'
+        'gap = 0.5\n[field]\ndimensions = 1\n[coupling]\nstrength = 0.05\n[packet]\n'
+        'shape = "file"\namplitude_file = "a.csv"\nwidth = 1.0\ninternal = "excited"\n')
+    monkeypatch.chdir(tmp_path)
+    s = load_scenario(folder / "s.toml")
+    assert Path(s.packet.amplitude_file) == (folder / "a.csv").resolve()
