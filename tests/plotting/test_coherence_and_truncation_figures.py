@@ -58,3 +58,4 @@ def test_a_3d_fock_run_is_labelled_truncated(make_scenario):
     assert method_label("fock", result) == (f"fock, truncated: {record['kept']} of {record['of']} "
                                             "modes (convergence not checked)")
     assert not truncation_converged(result)
+    assert any(w.startswith(f"3D bath truncated to {record['kept']} modes") for w in result.warnings)

@@ -642,6 +642,13 @@ class FockSolver(Solver):
             out.append(f"bath truncated to the {plan.modes.count} most strongly coupled of the "
                        f"{plan.modes.available} box modes within the cutoff; raise bath.fock_modes "
                        "to keep more")
+        record = self.truncation()
+        if length is None and record["kept"] < record["of"]:
+            out.append(f"3D bath truncated to {record['kept']} modes on the direction rule, where a "
+                       f"box resolving the continuum up to t_max would hold about {record['of']:,}: "
+                       "a narrow line between its |k| nodes is not resolved and the decay can stall; "
+                       "raise bath.fock_modes (compare checks the convergence), or use method "
+                       "\"exact\" under the rotating-wave approximation")
         if plan.separation and length is not None and step > np.pi / (FRINGE_BINS * plan.separation):
             out.append(f"the box lattice step {step:.3g} of the momentum densities does not resolve "
                        f"structure of period 2 pi / d = {2 * np.pi / plan.separation:.3g} (fringes "
