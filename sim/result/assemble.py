@@ -14,7 +14,8 @@ from importlib import metadata
 import numpy as np
 
 from ..config.schema import Scenario
-from ..physics.coherence import coherence_distance, coherence_warning, spatial_coherence
+from ..physics.coherence import (coherence_check, coherence_distance, coherence_warning,
+                                 packet_characteristic, spatial_coherence)
 from ..physics.field import packet_for
 from ..physics.golden_rule import packet_rate
 from ..physics.models import EXCITED, level_of
@@ -155,8 +156,9 @@ def coherence_of(method: str, scenario: Scenario, evo: Evolution):
         coherence_at (d, length units) and final_coherence (the last computed value, or None)
         when a distance is set; empty otherwise.
     notes : list of str
-        Why the coherence is missing (the method does not compute it, or the packet holds no
-        coherence at d: `coherence_warning`).
+        Why the coherence is missing or withheld: the method does not compute it, its chi(0)
+        misses the packet's own (`coherence_check`: d not resolved), or the packet holds no
+        coherence at d (`coherence_warning`).
     """
     distance = coherence_distance(scenario)
     if distance is None:
@@ -168,11 +170,15 @@ def coherence_of(method: str, scenario: Scenario, evo: Evolution):
                                "not compute it for this scenario, so final_coherence is null; "
                                "choose another run.method"]
     chi = np.asarray(evo.coherence, dtype=complex)
+    reference = packet_characteristic(packet_for(scenario), d)
+    missed = coherence_warning(reference, d, key) or coherence_check(chi[0], reference, d, key)
+    if missed:
+        return None, entries, missed
     coherence = spatial_coherence(chi)
     known = np.flatnonzero(np.isfinite(coherence))
     if known.size:
         entries["final_coherence"] = float(coherence[known[-1]])
-    return coherence, entries, coherence_warning(chi[0], d, key)
+    return coherence, entries, []
 
 
 #: where each method's norm drift comes from and the key that reduces it (`norm_warning`): the

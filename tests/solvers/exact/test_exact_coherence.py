@@ -44,7 +44,7 @@ def test_gaussian_packet_in_3d_keeps_sinc_kd_after_decay():
            "field": {"dimensions": 3, "mass": 0.0}, "coupling": {"lifetime": 200.0},
            "packet": {"width": 2.0, "momentum": [0.0, 0.0, 0.0], "internal": "excited"},
            "run": {"method": "exact", "t_max": 2000.0, "samples": 41, "coherence_at": 2.0},
-           "bath": {"sectors": 6}}
+           "bath": {"sectors": 10}}
     result = run(load_scenario(raw))
     k = (1001.0 ** 2 - 1000.0 ** 2) / (2 * 1001.0)
     assert result.summary["final_excited"] < 1e-4
