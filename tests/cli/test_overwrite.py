@@ -143,6 +143,7 @@ def test_outputs_follow_the_umask(scenario_file, tmp_path, monkeypatch, umask_02
 # --- 4. sweep --force --------------------------------------------------------------------------
 
 
+@pytest.mark.slow  # three sweeps through the CLI (about 4 s)
 def test_sweep_force_replaces_only_recoilsim_sweeps(scenario_file, tmp_path, capsys):
     out = tmp_path / "sweep"
     first = ["sweep", str(scenario_file), "--vary", "packet.width=10,20", "--out", str(out),

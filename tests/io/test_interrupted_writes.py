@@ -124,6 +124,7 @@ def test_interrupt_at_every_write_step_leaves_previous_or_nothing(results, tmp_p
     check_interrupted_writes(*results, tmp_path, previous, figures=False)
 
 
+@pytest.mark.slow  # interrupting a figure write in a subprocess (about 5 s)
 def test_interrupt_while_writing_figures_leaves_previous(results, tmp_path):
     # figures are written between the CSV tables and summary.json: interrupt at the first
     # figure steps and at the final swap of the folders

@@ -61,6 +61,7 @@ def test_bad_vary_is_one_line_and_exit_2(make_scenario, write_scenario, tmp_path
     assert not (tmp_path / "o").exists()
 
 
+@pytest.mark.slow  # a two-key product sweep with figures (about 5 s)
 def test_product_of_two_varies(make_scenario, write_scenario, tmp_path, capsys):
     scenario_file = write_scenario(make_scenario(SWEEP), "base.toml")
     out = tmp_path / "sweep"
@@ -96,6 +97,7 @@ def test_product_of_two_varies(make_scenario, write_scenario, tmp_path, capsys):
                  "--out", str(out)]) == 2
 
 
+@pytest.mark.slow  # killing and resuming a sweep of worker processes (about 10 s)
 def test_killed_sweep_resumes_with_every_point_once(make_scenario, write_scenario, tmp_path):
     scenario_file = write_scenario(make_scenario(SWEEP), "base.toml")
     out = tmp_path / "killed"

@@ -244,6 +244,7 @@ def test_weak_coupling_markov_agrees_with_exact(make_scenario):
 # --- trajectories -----------------------------------------------------------------------------
 
 
+@pytest.mark.slow  # many quantum trajectories (about 4 s)
 def test_trajectories_converge_to_the_master_equation(make_scenario):
     # the unravelling's mean converges to the mesolve population within its binomial standard
     # error sqrt(P(1-P)/N) (common practice for Monte Carlo averages); fixed seed
