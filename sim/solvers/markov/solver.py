@@ -134,13 +134,10 @@ RING_TOLERANCE = 1e-4
 #: branch, a lattice artifact that dominates Var x and does not shrink with the step (measured:
 #: Var x = 833 instead of about 420 at t = 40 for the 1D default, at 37, 73 and 145 points)
 SPLIT_POSITION_TOLERANCE = 1e-6
-SPLIT_POSITION_NOTE = ("x_var: not computed: the recoil kicks do not land on the momentum "
-                       "lattice and are split between neighbouring lattice momenta, which gives "
-                       "each kicked branch position tails of the lattice, not of the physics, that "
-                       "dominate the position variance (a finer grid.points does not remove "
-                       "them); markov gives Var x where no kick is split (no jumps, or a static "
-                       'detector whose kicks k* the lattice step divides), and run.method = '
-                       '"exact" gives it in 1D')
+SPLIT_POSITION_NOTE = ("x_var: not computed: markov splits each recoil kick between neighbouring "
+                       "lattice momenta, which gives the position density tails of the lattice "
+                       "that dominate Var x (a finer grid.points does not remove them); "
+                       'run.method = "exact" gives Var x in 1D')
 #: a thermal closure of more than this many states per window point is set by the thermal walk
 #: (run.t_max), not by the window (the window, one kick either way and both levels: about 4)
 THERMAL_WINDOW_STATES = 4
