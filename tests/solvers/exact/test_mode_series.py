@@ -119,3 +119,13 @@ def sparse_hamiltonian(bath):
 def solver_stride(scenario) -> int:
     """The 1D sector stride of the scenario's automatic exact bath."""
     return ExactSolver(scenario).bath().stride
+
+
+def test_coarse_sectors_are_named_in_a_warning():
+    # three sectors over +-6 sigma_p sit 4 sigma_p apart: the density is interpolated over that
+    # spacing, and the warning names bath.sectors
+    scenario = with_keys(load_scenario(ROOT / "scenarios" / "default.toml"),
+                         {"bath.sectors": 3, "run.t_max": 50.0, "run.samples": 11})
+    warnings = ExactSolver(scenario).run().warnings
+    assert any(w.startswith("momentum density: the sectors sit") and "raise bath.sectors" in w
+               for w in warnings)
