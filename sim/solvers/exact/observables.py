@@ -23,8 +23,7 @@ import numpy as np
 from scipy import sparse
 
 from ...physics.field import packet_for
-from ...physics.models import model_for
-from ..common import axis_grid, bin_index, cell_edges, histogram
+from ..common import bin_index, cell_edges
 from .baths import Bath
 
 #: complex numbers allowed in the 1D reduced-state array (sectors x modes x state times)

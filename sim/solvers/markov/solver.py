@@ -91,7 +91,6 @@ from dataclasses import field as dataclass_field
 
 import numpy as np
 import qutip
-import scipy.sparse as sparse
 from scipy.sparse.linalg import expm_multiply
 
 from ...physics.coherence import coherence_distance
