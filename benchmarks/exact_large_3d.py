@@ -16,7 +16,7 @@ from __future__ import annotations
 import json
 import sys
 import time
-from importlib.resources import files
+from pathlib import Path
 
 import numpy as np
 
@@ -29,10 +29,7 @@ TARGET_SECONDS = 60.0
 
 
 def main(as_json: bool = False) -> None:
-    base = load_scenario(str(files("sim").parent / "scenarios" / "recoil_3d.toml")) if (
-        files("sim").parent / "scenarios" / "recoil_3d.toml").is_file() else None
-    if base is None:
-        raise SystemExit("scenarios/recoil_3d.toml not found: run from a source checkout")
+    base = load_scenario(Path(__file__).resolve().parents[1] / "scenarios" / "recoil_3d.toml")
     scenario = with_keys(base, {"bath.radial_nodes": RADIAL, "bath.angular_nodes": ANGULAR,
                                 "bath.sectors": SECTORS})
     times = sample_times(scenario)

@@ -254,6 +254,8 @@ def print_comparison(summary: dict, out: Path) -> None:
     out : Path
         The compare folder (printed).
     """
+    from ..result.result import truncation_verdict  # loaded by the comparison already
+
     unit = summary.get("units", {}).get("rate_fitted", "natural units")
     differences = summary["max_difference_from_exact"] or {}
     print(f"{summary['title']}: compared (simulated); golden-rule rate "
@@ -264,9 +266,8 @@ def print_comparison(summary: dict, out: Path) -> None:
         verdict = fit.get("verdict") or ("reference" if method == "exact" else "ran")
         cut = summary.get("truncation", {}).get(method)
         if cut:
-            judged = {True: "converged", False: "not converged"}.get(cut["converged"],
-                                                                     "convergence not checked")
-            verdict += f"; truncated {cut['kept']} of {cut['of']} {cut['what']}, {judged}"
+            verdict += (f"; truncated {cut['kept']} of {cut['of']} {cut['what']}, "
+                        f"{truncation_verdict(cut['converged'])}")
         warns = len(summary["warnings"].get(method, []))
         verdict += f"; {warns} warning{'s' if warns != 1 else ''}" if warns else ""
         print(f"  {method:<13}{_number(summary['rate_fitted'].get(method)):>13}  "

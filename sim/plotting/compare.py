@@ -13,6 +13,7 @@ import textwrap
 
 import numpy as np
 
+from .run_figures import static_limit
 from .style import (
     LEGEND_SIZE,
     NOT_CONVERGED,
@@ -144,8 +145,6 @@ def coherence_compare_figure(scenario, results: dict, left_out: dict | None = No
     matplotlib Figure
         Stamped simulated.
     """
-    from .run_figures import static_limit
-
     fig, ax = new_figure()
     drawn = {m: r for m, r in results.items() if r.coherence is not None}
     for index, (method, result) in enumerate(drawn.items()):

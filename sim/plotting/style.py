@@ -24,6 +24,7 @@ from ..config.registry import (FIGURE_DPI, FIGURE_DPI_RANGE, FIGURE_FORMATS, MET
 from ..config.units import COLUMN_POWERS
 from ..errors import UsageError
 from ..io.atomic import atomic_save_figure
+from ..result.result import truncation_verdict
 
 STAMP = "simulated (recoilsim)"
 #: written into the saved file's metadata as well
@@ -622,8 +623,7 @@ def method_label(method: str, result=None) -> str:
     """
     cut = bath_truncation(result) if result is not None else None
     if cut:
-        verdict = {True: "converged", False: "not converged"}.get(cut[2], "convergence not checked")
-        return f"{method}, truncated: {cut[0]} of {cut[1]} modes ({verdict})"
+        return f"{method}, truncated: {cut[0]} of {cut[1]} modes ({truncation_verdict(cut[2])})"
     return f"{method} (simulated)"
 
 

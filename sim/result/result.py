@@ -16,6 +16,22 @@ import numpy as np
 DRAWERS: dict[str, Callable] = {}
 
 
+def truncation_verdict(converged: bool | None) -> str:
+    """The words for a truncated bath's convergence verdict, in figures and on the terminal.
+
+    Parameters
+    ----------
+    converged : bool or None
+        The solver's truncation record "converged" (None: not checked).
+
+    Returns
+    -------
+    str
+        "converged", "not converged" or "convergence not checked".
+    """
+    return {True: "converged", False: "not converged"}.get(converged, "convergence not checked")
+
+
 @dataclass
 class Result:
     """Simulated time evolution of one scenario by one method.

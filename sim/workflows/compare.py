@@ -283,8 +283,8 @@ def compare_summary(scenario, comparison: Comparison, curves: dict) -> dict:
         "warnings": {m: r.warnings for m, r in results.items()},
         "final_coherence": {m: r.summary["final_coherence"] for m, r in results.items()
                             if "final_coherence" in r.summary},
-        "truncation": {m: truncation_entry(r) for m, r in results.items()
-                       if truncation_entry(r) is not None},
+        "truncation": {m: entry for m, r in results.items()
+                       if (entry := truncation_entry(r)) is not None},
         "scenario": dict(scenario.source),
     }
     if scenario.units is not None:

@@ -40,8 +40,6 @@ from .star import CHUNK_ELEMENTS, DUHAMEL_NODES, duhamel_substeps, sector_lamb_s
 
 #: 3D axis density: Gaussian smoothing of the sampled histogram, in grid cells
 DENSITY_SMOOTHING = 1.5
-#: largest phase D d of exp(i p d) between neighbouring 1D sectors (D apart) for chi(t)
-FRINGE_PHASE = 0.5
 
 # Memory of a run (`ExactSolver.estimate`), measured as the peak resident memory of the bundled
 # scenarios (default.toml, recoil_3d.toml) at several sample counts:
@@ -437,6 +435,9 @@ def _evolve_1d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
     distance = coherence_distance(scenario)
     d = distance[0] if distance is not None else None
     chi = np.zeros(times.size, dtype=complex) if d is not None else None
+    # the packet's phase at each sector: the reduced state's coherences between sectors
+    momenta = np.array([sec.momentum for sec in bath.sectors])
+    phases = np.exp(1j * np.angle(packet.axis_amplitude(momenta)))
     for index, (sector, spectrum) in enumerate(zip(bath.sectors, spectra)):
         level = spectrum.level_amplitude(times)
         level_p = np.abs(level) ** 2
@@ -454,16 +455,14 @@ def _evolve_1d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
         lattice_p.append(round(sector.momentum / bath.spacing) - sector.lattice)
         probability.append(sector.weight * np.abs(modes[snap_rows].T) ** 2)
         if state is not None:
-            phase = np.exp(1j * np.angle(packet.axis_amplitude(np.array([sector.momentum]))[0]))
-            state.add(index, sector, phase * level[state.times], phase * modes[state_rows])
+            state.add(index, sector, phases[index] * level[state.times],
+                      phases[index] * modes[state_rows])
     norm = moments[:, 0]
     mean = moments[:, 1] / norm
     variance = moments[:, 2] / norm - mean ** 2
     grid, density, density_notes = lattice_density(scenario, bath, np.concatenate(lattice_p),
                                                    np.concatenate(probability))
     warnings, x_var, purity, final, details = list(density_notes), None, None, None, {}
-    if distance is not None:
-        warnings += fringe_warning(bath, *distance)
     if state is None:
         warnings.append("x_var, purity: not computed (the reduced state needs the sectors on "
                         f"every lattice point (stride here {bath.stride}) and at most "
@@ -479,36 +478,6 @@ def _evolve_1d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
                      initial_density=packet.axis_density(grid), x_var=x_var, purity=purity,
                      norm=norm, final_state=final, warnings=warnings, details=details,
                      coherence=chi)
-
-
-def fringe_warning(bath: Bath, d: float, key: str) -> list[str]:
-    """A warning when the 1D sectors are too far apart to resolve exp(i p d).
-
-    chi = sum_P w_P exp(i P d) samples the packet's density times a phase that turns by
-    D d between neighbouring sectors D = stride x dk apart; beyond FRINGE_PHASE the sum
-    aliases (and a two-lobe packet's fringes of period 2 pi / d are not resolved).
-
-    Parameters
-    ----------
-    bath : Bath
-        A 1D bath.
-    d : float
-        The coherence distance (length units).
-    key : str
-        The key that set it.
-
-    Returns
-    -------
-    list of str
-        One line naming bath.sectors when D d > FRINGE_PHASE, else empty.
-    """
-    spacing = bath.stride * bath.spacing
-    if spacing * d <= FRINGE_PHASE:
-        return []
-    needed = math.ceil(len(bath.sectors) * spacing * d / FRINGE_PHASE)
-    return [f"spatial coherence at {key} = {d:g}: the sectors sit {spacing:.3g} apart in momentum, "
-            f"so exp(i p d) turns by {spacing * d:.2f} rad between them (more than "
-            f"{FRINGE_PHASE:g}) and chi(t) is not resolved; raise bath.sectors to about {needed}"]
 
 
 # --- 3D -----------------------------------------------------------------------------------------

@@ -152,10 +152,11 @@ class StarSpectrum:
 
         On a uniform grid t_n = t_0 + n dt (any linspace) the phase factorises exactly: with
         n = a B + b, exp(-i z t_n) = exp(-i z t_0) exp(-i z a B dt) exp(-i z b dt), so c on the
-        grid is one complex matrix product (A x M) @ (M x B) with A B >= T and B ~ sqrt(T).  Both
-        factors are tables of `_grid_phases` (each entry a product of exponentials exact to
-        rounding: about 2 sqrt(A) + 2 sqrt(B) + 1 exponentials per root instead of T), with no
-        recurrence and no growth of the error with n; other time sets are summed directly.
+        grid is one complex matrix product (A x M) @ (M x B) with A B >= T and B ~ sqrt(T)
+        (`_grid_level_amplitudes` with the one offset t_0).  Both factors are tables of
+        `_grid_phases` (each entry a product of exponentials exact to rounding: about
+        2 sqrt(A) + 2 sqrt(B) + 1 exponentials per root instead of T), with no recurrence and no
+        growth of the error with n; other time sets are summed directly.
 
         Parameters
         ----------
@@ -176,16 +177,9 @@ class StarSpectrum:
         grid = _uniform_grid(times)
         if grid is None:
             return self._summed_level_amplitude(times)
-        start, step, inner = grid
-        outer = -(-times.size // inner)
-        eigenvalues = self.eigenvalues
-        amplitude = np.zeros(outer * inner, dtype=complex)
-        for roots in _blocks(eigenvalues.size, outer + inner):
-            z = eigenvalues[roots]
-            weights = self.residues[roots] * _unit_phases(start * z)
-            late = _grid_phases(z, step * inner, outer) * weights
-            amplitude += (late @ _grid_phases(z, step, inner).T).ravel()
-        return amplitude[: times.size]
+        start, step, _ = grid
+        return _grid_level_amplitudes(self.eigenvalues, self.residues, step, times.size,
+                                      np.array([start]))[:, 0]
 
     def _summed_level_amplitude(self, times) -> np.ndarray:
         """c(t) = sum_j w_j exp(-i z_j t) summed directly at arbitrary times, in O(M x T)."""
