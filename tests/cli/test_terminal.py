@@ -53,7 +53,9 @@ def test_compare_budget_skips_with_the_estimate_on_the_terminal(make_scenario, w
     assert "fock         skipped: estimated 1e+04 s, over the budget of 60 s" in out
 
 
-@pytest.mark.parametrize("tolerance, verdict", [("0.5", "converged"), ("1e-12", "not converged")])
+@pytest.mark.parametrize("tolerance, verdict", [
+    ("0.5", "converged"),
+    pytest.param("1e-12", "not converged", marks=pytest.mark.slow)])  # a second --check run
 def test_check_prints_the_changes_and_a_verdict_against_the_tolerance(make_scenario,
                                                                      write_scenario, tmp_path,
                                                                      capsys, tolerance, verdict):

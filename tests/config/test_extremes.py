@@ -94,6 +94,7 @@ def test_bare_number_in_a_lab_scenario_is_said_aloud(write_scenario, make_scenar
     assert line.endswith("ns; write '130 ns'?")
 
 
+@pytest.mark.slow  # a subprocess run (about 3 s)
 def test_scenario_from_standard_input(write_scenario, make_scenario):
     text = write_scenario(make_scenario()).read_text()
     dash = _cli("rates", "-", stdin=text)

@@ -97,7 +97,12 @@ def check_estimate(scenario) -> str:
     return line
 
 
-@pytest.mark.parametrize("name", sorted(SHORTENED))
+#: the thermal 3D copy is the longest; the slow check covers that scenario in full
+SLOW_SHORTENED = {"thermal_excitation_3d.toml"}
+
+
+@pytest.mark.parametrize("name", [pytest.param(n, marks=pytest.mark.slow) if n in SLOW_SHORTENED
+                                  else n for n in sorted(SHORTENED)])
 def test_estimates_of_shortened_markov_and_fock_runs(name):
     scenario = with_keys(load_scenario(ROOT / "scenarios" / name), SHORTENED[name])
     assert scenario.run.method in ("markov", "fock")

@@ -104,6 +104,7 @@ def loaded(proc: subprocess.Popen, library: str) -> bool:
         return False
 
 
+@pytest.mark.slow  # a sweep of worker processes interrupted (about 3 s)
 def test_sigint_stops_a_sweep_at_once_and_its_table_lists_the_finished_points(
         make_scenario, write_scenario, tmp_path):
     scenario_file = write_scenario(make_scenario(QUICK))

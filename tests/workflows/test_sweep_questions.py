@@ -66,6 +66,7 @@ def test_a_key_that_does_not_apply_is_dropped_at_that_point_and_listed(make_scen
         assert not list(point.glob("*.png"))  # --no-figures
 
 
+@pytest.mark.slow  # time-evolving sweep points through the CLI (about 3 s)
 def test_run_points_report_final_population_gamma_over_omega_and_warnings(make_scenario,
                                                                          tmp_path):
     base = load_scenario(make_scenario(BASE, model="newton-wigner", coupling__matching=None))
