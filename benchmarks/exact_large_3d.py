@@ -2,9 +2,10 @@
 
 The bundled moving-detector 3D scenario (recoil_3d.toml: ground mass 20, gap 0.5, strength
 0.4, packet width 5 at momentum 1) with a bath of RADIAL x ANGULAR nodes per sector
-(about 9 x 10^4 modes within the cutoff) and SECTORS packet sectors, 301 sample times: P_e,
-<p> and Var p along the axis at every time and the momentum-density snapshots.  No reference
-solver can hold the 7 x 10^5 coupled states in reasonable time, so the row states the target
+(about 1.03 x 10^5 modes within the cutoff) and SECTORS packet sectors, 301 sample times: P_e,
+<p> and Var p along the axis, Var x along it and across it at every time, the purity
+and the momentum-density snapshots.  No reference
+solver can hold the 8 x 10^5 coupled states in reasonable time, so the row states the target
 (under 60 s) and the norm check max |norm - 1| as its agreement.  The time is that of
 `ExactSolver.evolve` (the bath built first, as a run does, and counted).
 
@@ -24,7 +25,7 @@ from sim.physics.checks import load_scenario, with_keys
 from sim.solvers.common import sample_times
 from sim.solvers.exact.solver import ExactSolver
 
-RADIAL, ANGULAR, SECTORS = 3125, 32, 8
+RADIAL, ANGULAR, SECTORS = 3500, 32, 8
 TARGET_SECONDS = 60.0
 
 

@@ -62,7 +62,7 @@ MAX_UNIT_TEXT = 40
 COLUMN_POWERS = {
     "t": (1, 0, 0), "t_max": (1, 0, 0),
     "p": (0, 1, 0), "p_mean": (0, 1, 0), "kick": (0, 1, 0),
-    "p_var": (0, 2, 0), "x_var": (0, 0, 2),
+    "p_var": (0, 2, 0), "x_var": (0, 0, 2), "x_var_transverse": (0, 0, 2),
     "density": (0, -1, 0),
     "rate_golden_rule": (-1, 0, 0), "rate_fitted": (-1, 0, 0), "lamb_shift": (-1, 0, 0),
     "t_start": (1, 0, 0), "t_end": (1, 0, 0), "line_rate": (-1, 0, 0),

@@ -300,7 +300,7 @@ def result_tables(result: Result) -> dict[str, dict[str, np.ndarray]]:
     -------
     dict
         File stem -> column -> values: population (t, excited), recoil (t, p_mean, p_var, x_var,
-        purity), momentum (p, then one density column per snapshot), coherence (t, coherence)
+        x_var_transverse where the run has it, purity), momentum (p, then one density column per snapshot), coherence (t, coherence)
         when the run reports the spatial coherence, and the method's own tables;
         times, momenta, variances and densities in the output units of a scenario with units
         (natural units otherwise).
@@ -311,9 +311,8 @@ def result_tables(result: Result) -> dict[str, dict[str, np.ndarray]]:
     t = conv("t", result.times)
     tables = {
         "population": {"t": t, "excited": result.excited},
-        "recoil": {"t": t, "p_mean": conv("p_mean", result.p_mean),
-                   "p_var": conv("p_var", result.p_var), "x_var": conv("x_var", result.x_var),
-                   "purity": result.purity},
+        "recoil": {column: (conv(column, values) if column != "purity" else values)
+                   for column, values in result.recoil_columns().items()},
     }
     momentum = {"p": conv("p", result.momentum_grid)}
     for j, ts in enumerate(result.snapshot_times):

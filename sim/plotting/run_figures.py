@@ -306,9 +306,17 @@ def draw_variance(result, ax=None):
     if both:
         twin = ax.twinx()
         known = np.isfinite(result.x_var)  # x_var may be held at a subset of the times
+        axial = result.x_var_transverse is not None
         lines += twin.plot(t[known], in_output_units(scenario, "x_var", result.x_var[known]),
                            ls="--", color=VARIANCE_COLOURS[1], lw=2,
-                           label=r"$\mathrm{Var}\,x$ (right axis)")
+                           label=r"$\mathrm{Var}\,x$" + (" along the axis" if axial else "")
+                           + " (right axis)")
+        if axial:
+            lines += twin.plot(t[known], in_output_units(scenario, "x_var_transverse",
+                                                         result.x_var_transverse[known]),
+                               ls=":", marker="s", markevery=max(1, known.sum() // 12), ms=4,
+                               color=VARIANCE_COLOURS[1], lw=2,
+                               label=r"$\mathrm{Var}\,x_\perp$ across it (right axis)")
         twin.set_ylabel(labelled(r"position variance $\mathrm{Var}\,x$", scenario, "x_var"),
                         color=VARIANCE_COLOURS[1])
     ax.set_title("packet spreading (simulated)", fontsize=10)

@@ -132,7 +132,7 @@ def assemble(method: str, scenario: Scenario, evo: Evolution) -> Result:
                   momentum_grid=evo.momentum_grid, snapshot_times=evo.snapshot_times,
                   momentum_density=evo.momentum_density, initial_density=evo.initial_density,
                   summary=summary, tables=evo.tables, final_state=evo.final_state,
-                  coherence=coherence)
+                  coherence=coherence, x_var_transverse=evo.x_var_transverse)
 
 
 def coherence_of(method: str, scenario: Scenario, evo: Evolution):

@@ -38,7 +38,8 @@ class Result:
 
     Arrays over `times` (time units): `excited` (excited-state population), `p_mean`, `p_var`
     (COM momentum mean and variance along the packet axis), `x_var` (position variance along the
-    axis), `purity` (Tr rho^2 of the reduced COM state); `nan` where a method does not compute a
+    axis), `x_var_transverse` (3D: along one axis transverse to it; None in 1D or where the
+    method gives none), `purity` (Tr rho^2 of the reduced COM state); `nan` where a method does not compute a
     quantity.  `momentum_density[:, j]` is the ground-state COM momentum density on
     `momentum_grid` (along the packet axis) at `snapshot_times[j]`; `initial_density` is the
     packet's density there at t = 0.  `tables` holds method-specific extra tables (name ->
@@ -66,6 +67,7 @@ class Result:
     tables: dict = field(default_factory=dict)
     final_state: Any = None
     coherence: np.ndarray | None = None
+    x_var_transverse: np.ndarray | None = None
 
     @property
     def warnings(self) -> list[str]:
@@ -78,8 +80,8 @@ class Result:
         Returns
         -------
         pandas.DataFrame
-            Columns t (time units), excited, p_mean (momentum), p_var (momentum^2), x_var (length^2)
-            and purity, in natural units.
+            Columns t (time units), excited, p_mean (momentum), p_var (momentum^2), x_var (length^2),
+            x_var_transverse (length^2, where the run has it) and purity, in natural units.
 
         Raises
         ------
@@ -90,8 +92,28 @@ class Result:
             import pandas as pd
         except ImportError as exc:  # pandas is optional
             raise ImportError("Result.to_dataframe needs pandas: pip install pandas") from exc
-        return pd.DataFrame({"t": self.times, "excited": self.excited, "p_mean": self.p_mean,
-                             "p_var": self.p_var, "x_var": self.x_var, "purity": self.purity})
+        return pd.DataFrame(self.recoil_columns(excited=True))
+
+    def recoil_columns(self, *, excited: bool = False) -> dict:
+        """The time series by column name, in natural units: t, [excited,] p_mean, p_var,
+        x_var, x_var_transverse (only where the run has it) and purity.
+
+        Parameters
+        ----------
+        excited : bool, optional
+            Include the excited-state population after t (default False).
+
+        Returns
+        -------
+        dict
+            Column name -> ndarray over `times`.
+        """
+        columns = {"t": self.times, **({"excited": self.excited} if excited else {}),
+                   "p_mean": self.p_mean, "p_var": self.p_var, "x_var": self.x_var}
+        if self.x_var_transverse is not None:
+            columns["x_var_transverse"] = self.x_var_transverse
+        columns["purity"] = self.purity
+        return columns
 
     def plot(self, ax=None, figure: str = "decay"):
         """Draw one of the run's figures into `ax` (a new stamped figure if None).

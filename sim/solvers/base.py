@@ -320,6 +320,9 @@ class Evolution:
     x_var : ndarray or None
         Position variance of the reduced COM state along the axis (length^2, i.e.
         1 / momentum^2 units); None where the method does not compute it.
+    x_var_transverse : ndarray or None
+        3D: position variance along one axis transverse to the packet axis (length^2); None in
+        1D or where the method does not compute it.
     purity : ndarray or None
         Tr rho_COM^2 of the reduced COM state (dimensionless); None where not computed.
     norm : ndarray or None
@@ -352,6 +355,7 @@ class Evolution:
     momentum_density: np.ndarray
     initial_density: np.ndarray
     x_var: np.ndarray | None = None
+    x_var_transverse: np.ndarray | None = None
     purity: np.ndarray | None = None
     norm: np.ndarray | None = None  # total probability, where the solver can check it
     lamb_shift: float = float("nan")

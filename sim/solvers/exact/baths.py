@@ -37,7 +37,7 @@ Units: hbar = c = 1; momenta, energies in the energy unit, lengths and times in 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field as dataclass_field, replace
 
 import numpy as np
 
@@ -88,6 +88,12 @@ PHASE_TOLERANCE = 0.1
 SCREEN_MODES = 2000
 #: bytes per bath mode of a sector's arrays (six float64 arrays), for the guard of a full band
 SECTOR_MODE_BYTES = 48.0
+#: columns of `Sector.slopes`
+SLOPES = 8
+#: 3D sector slopes: central-difference step in |P|, relative to |P| + sigma_p
+SECTOR_STEP = 1e-4
+#: relative step of the central differences of the vertex factor (`vertex_log_slopes`)
+VERTEX_STEP = 1e-6
 
 
 @dataclass(frozen=True)
@@ -115,6 +121,12 @@ class Sector:
         3D: u = cos theta of the node relative to P; 1D: the sign of k (dimensionless).
     quanta_square : ndarray, shape (N,)
         3D: the |g|^2-weighted mean k^2 of the node; 1D: k^2 (momentum^2).
+    slopes : ndarray, shape (N, 8)
+        3D: the node's integrals Int |g|^2 s dV of the slopes s = gamma, v, gamma^2, v^2,
+        gamma v, (1 - u^2) gamma_u^2, (1 - u^2) v_u^2, (1 - u^2) gamma_u v_u of the mode at fixed
+        k (`mode_slopes`: gamma = d ln g / d|P|, v = d eps / d|P|, gamma_u and v_u the same in u
+        divided by |P|), which the position moments need (`observables.spreading_moments`);
+        shape (0, 8) in 1D (units: energy^2 times the slope's).
     """
 
     momentum: float
@@ -126,6 +138,7 @@ class Sector:
     lattice: np.ndarray
     cosines: np.ndarray
     quanta_square: np.ndarray
+    slopes: np.ndarray = dataclass_field(default_factory=lambda: np.zeros((0, SLOPES)))
 
     @property
     def coupling_sum(self) -> float:
@@ -744,18 +757,19 @@ def shell_sector(model: COMModel, field: Field, P: float, weight: float, width: 
     pieces = [(np.zeros_like(u), turn, False), (turn, np.full_like(u, K), True)]
     nodes = [_piece_nodes(model, field, P, level, u, u_weights, width, window, *piece)
              for piece in pieces]
-    energies, W0, W1, W2, cos = (np.concatenate(parts) for parts in zip(*nodes))
+    energies, W0, W1, W2, cos, slopes = (np.concatenate(parts) for parts in zip(*nodes))
     keep = W0 > 0
     mean_k = W1[keep] / W0[keep]
     return Sector(float(P), float(weight), level, energies[keep], np.sqrt(W0[keep]), mean_k,
-                  np.zeros(0, dtype=int), cos[keep], W2[keep] / W0[keep])
+                  np.zeros(0, dtype=int), cos[keep], W2[keep] / W0[keep], slopes[keep])
 
 
 def _piece_nodes(model, field, P, level, u, u_weights, width, window, start, stop, rising):
     """The (shell, u) nodes of one monotone piece of the energy at the angular nodes u.
 
-    (energy, Int |g|^2 dV, Int |g|^2 k dV, Int |g|^2 k^2 dV, u) of every (shell, u) node on the
-    monotone pieces k in [start(u), stop(u)], dV = 2 pi k^2 dk x (u weight).
+    (energy, Int |g|^2 dV, Int |g|^2 k dV, Int |g|^2 k^2 dV, u, Int |g|^2 slopes dV) of every
+    (shell, u) node on the monotone pieces k in [start(u), stop(u)], dV = 2 pi k^2 dk x
+    (u weight), the slopes those of `mode_slopes`.
     """
     e_start = shell_energy(model, field, P, start, u)
     e_stop = shell_energy(model, field, P, stop, u)
@@ -766,7 +780,7 @@ def _piece_nodes(model, field, P, level, u, u_weights, width, window, start, sto
     count = np.where(e_hi > e_lo, np.ceil((e_hi - level) / width) - first, 0).astype(int)
     node = np.repeat(np.arange(u.size), count)
     if node.size == 0:
-        return (np.zeros(0),) * 5
+        return (np.zeros(0),) * 5 + (np.zeros((0, SLOPES)),)
     shell = first[node] + (np.arange(node.size) - np.repeat(np.cumsum(count) - count, count))
     lower = np.maximum(level + shell * width, e_lo[node])
     upper = np.minimum(level + (shell + 1) * width, e_hi[node])
@@ -782,7 +796,108 @@ def _piece_nodes(model, field, P, level, u, u_weights, width, window, start, sto
     density = (coupling_density(model, field, EMISSION, k, P, q) * 2 * np.pi * k * k
                * np.abs(w) * u_weights[node][:, None])
     energies = level + (shell + 0.5) * width
-    return (energies, density.sum(1), (density * k).sum(1), (density * k * k).sum(1), uu)
+    slopes = np.einsum("np,nps->ns", density, mode_slopes(model, P, k, uu[:, None]))
+    return (energies, density.sum(1), (density * k).sum(1), (density * k * k).sum(1), uu, slopes)
+
+
+def mode_slopes(model: COMModel, P: float, k, u) -> np.ndarray:
+    """Slopes of a 3D mode's coupling and energy with the sector momentum, at fixed vector k.
+
+    With q = |P - k| = sqrt(P^2 + k^2 - 2 P k u) and eps = E_g(q) + w_k, g ~ V(P, q):
+
+        v       = d eps / d|P|       = v_g(q) (P - k u) / q,
+        v_u     = (d eps / d u) / P  = -v_g(q) k / q,
+        gamma   = d ln g / d|P|      = d_P ln V + d_q ln V (P - k u) / q,
+        gamma_u = (d ln g / d u) / P = -d_q ln V k / q
+
+    (the u-slopes divided by |P| stay finite as |P| -> 0; d ln V from `vertex_log_slopes`).
+
+    Parameters
+    ----------
+    model : COMModel
+    P : float
+        |P| of the sector (momentum units).
+    k : ndarray
+        |k| of the quantum (momentum units).
+    u : ndarray
+        cos theta between k and P, broadcast against k (dimensionless).
+
+    Returns
+    -------
+    ndarray, shape k.shape + (SLOPES,)
+        gamma, v, gamma^2, v^2, gamma v, (1 - u^2) gamma_u^2, (1 - u^2) v_u^2,
+        (1 - u^2) gamma_u v_u (gamma in 1 / momentum, v dimensionless, the u-slopes per |P|).
+    """
+    k, u = np.broadcast_arrays(np.asarray(k, dtype=float), np.asarray(u, dtype=float))
+    q = np.maximum(np.sqrt(np.maximum(P * P + k * k - 2 * P * k * u, 0.0)), 1e-300)
+    along, across = (P - k * u) / q, -k / q
+    d_p, d_q = vertex_log_slopes(model, P, q)
+    speed = model.velocity(GROUND, q)
+    v, v_u = speed * along, speed * across
+    gamma, gamma_u = d_p + d_q * along, d_q * across
+    side = 1 - u * u
+    return np.stack([gamma, v, gamma * gamma, v * v, gamma * v, side * gamma_u ** 2,
+                     side * v_u ** 2, side * gamma_u * v_u], axis=-1)
+
+
+def vertex_log_slopes(model: COMModel, P: float, q) -> tuple[np.ndarray, np.ndarray]:
+    """d ln V / d p_e and d ln V / d p_g of the emission vertex V(p_e, p_g) at (P, q).
+
+    Central differences with relative step VERTEX_STEP (V is smooth and positive); zero for
+    the models whose vertex is 1.
+
+    Parameters
+    ----------
+    model : COMModel
+    P : float
+        Excited-level momentum |P| (momentum units).
+    q : ndarray
+        Ground-level momentum |P - k| (momentum units).
+
+    Returns
+    -------
+    (ndarray, ndarray)
+        The two slopes, shaped like q (1 / momentum units).
+    """
+    q = np.asarray(q, dtype=float)
+    scale = VERTEX_STEP * (P + q + model.ground_mass)
+
+    def log_vertex(p_e, p_g):
+        return np.log(np.abs(EMISSION.vertex(model, p_e, p_g)))
+
+    p_lo, q_lo = np.maximum(P - scale, 0.0), np.maximum(q - scale, 0.0)
+    d_p = (log_vertex(P + scale, q) - log_vertex(p_lo, q)) / (P + scale - p_lo)
+    d_q = (log_vertex(P, q + scale) - log_vertex(P, q_lo)) / (q + scale - q_lo)
+    return d_p, d_q
+
+
+def neighbour_sectors(scenario, bath: Bath, sector: Sector) -> tuple[Sector, Sector, float]:
+    """The 3D sector at |P| -/+ delta with the bath's shells, for slopes in |P| at fixed k.
+
+    delta = SECTOR_STEP (|P| + sigma_p), at most |P| / 2; the shells keep their width, angular
+    nodes and window relative to the level, so the phase-free level amplitude is smooth in |P|
+    (`star.StarSpectrum.level_slope`).
+
+    Parameters
+    ----------
+    scenario : Scenario
+    bath : Bath
+        A 3D bath (`shell_bath`).
+    sector : Sector
+        One of its sectors.
+
+    Returns
+    -------
+    below, above : Sector
+    delta : float
+        The step (momentum units).
+    """
+    model, field = bath_model(scenario)
+    P = sector.momentum
+    delta = min(SECTOR_STEP * (P + packet_for(scenario).momentum_std), 0.5 * P)
+    below, above = (shell_sector(model, field, P + sign * delta, sector.weight, bath.spacing,
+                                 bath.angular_nodes, bath.window) for sign in (-1, 1))
+    return below, above, delta
 
 
 def default_shell_width(t_max: float) -> float:

@@ -13,7 +13,9 @@ of sector P, c(P, t) the level amplitude and c_k(P, t) the mode amplitudes,
 and in 3D the same along the packet axis, with the emission direction's moments relative to P
 projected by the conditional direction moments of the Gaussian packet
 (`Packet.direction_moments`).  In 1D the reduced COM state follows on the momentum lattice
-(`observables.ReducedState1D`).  The mode amplitudes follow from the level amplitude by the
+(`observables.ReducedState1D`).  In 3D the position variances along the axis and across it
+come from the amplitudes' slopes in |P| at fixed k (`observables.position_moments`), the
+purity from the mixture of kicked packets (`observables.KickedPurity3D`).  The mode amplitudes follow from the level amplitude by the
 exact Duhamel recurrence on the sample grid (`star.StarSpectrum.mode_series`), so the recoil
 observables at every sample time cost O(modes) per sector and time, as the decay itself does.
 """
@@ -32,11 +34,14 @@ from ...physics.field import packet_for
 from ...physics.models import model_for
 from ..base import SAMPLE_BYTES, Estimate, Evolution, Solver, credit
 from ..common import SNAPSHOTS, axis_grid, last_sample_time, masked, snapshot_indices
-from .baths import Bath, bath_for, discreteness_correction, lamb_sector, refined_keys
+from .baths import (Bath, bath_for, discreteness_correction, lamb_sector, neighbour_sectors,
+                    refined_keys)
 from .bound import bound_states, packet_bound_states
-from .observables import (STATE_ELEMENTS, ReducedState1D, axis_density, direction_phases,
-                          lattice_density)
-from .star import CHUNK_ELEMENTS, DUHAMEL_NODES, duhamel_substeps, sector_lamb_shift, star_spectrum
+from .observables import (PURITY_TOLERANCE, STATE_ELEMENTS, KickedPurity3D, ReducedState1D,
+                          axis_density, direction_phases, kicked_purity_error, lattice_density,
+                          position_moments)
+from .star import (CHUNK_ELEMENTS, DUHAMEL_NODES, duhamel_substeps, grid_from_zero,
+                   sector_lamb_shift, star_spectrum)
 
 #: 3D axis density: Gaussian smoothing of the sampled histogram, in grid cells
 DENSITY_SMOOTHING = 1.5
@@ -63,6 +68,9 @@ FLOP_RATE = 2e9
 STATE_PASSES = 20
 #: root finding of a sector: ROOT_SECONDS x (bright modes)^ROOT_POWER
 ROOT_SECONDS, ROOT_POWER = 2e-7, 1.5
+#: 3D: operations per bright mode and sample time of the position sums (the eight amplitude
+#: products and their contraction, `star._spreading_coefficients`)
+SPREAD_WORK = 60.0
 
 
 def unsupported(scenario) -> list[str]:
@@ -160,14 +168,16 @@ class ExactSolver(Solver):
         amplitudes are kept (snapshots and, in 1D, the reduced state's times) and E the reduced
         state's amplitudes (`reduced_state_elements`):
 
-            memory = MODE_BYTES R (N in 1D, B in 3D) + NODE_BYTES T Q + STATE_BYTES E
+            memory = MODE_BYTES R (N in 1D, B in 3D) + NODE_BYTES T Q (x3 in 3D) + STATE_BYTES E
                      + BATH_BYTES sum_s N_s + SAMPLE_BYTES T + CHUNK_BYTES + FIXED_BYTES,
             work   = sum_s [8 (N_s + 1) T (1 + Q_s) + 8 T Q_s B_s + 24 T B_s]
                      + 8 E (sectors + STATE_PASSES)
+                     (in 3D the first term x3 for the neighbouring spectra, the next two x3 for
+                     the slope series, plus 8 SPREAD_WORK T B_s for the position sums)
                      (level amplitudes, at the quadrature nodes, the Duhamel kernel, the
                      recurrence and the mode sums; the reduced state's purity, a sum over
                      sector offsets, and its position variance and storage),
-            seconds = work / FLOP_RATE + ROOT_SECONDS sum_s B_s^ROOT_POWER.
+            seconds = work / FLOP_RATE + ROOT_SECONDS sum_s B_s^ROOT_POWER (x3 in 3D).
 
         The constants are measured (peak resident memory and wall time of runs of the bundled
         scenarios on the machine the module names).  The bath is built for t_max alone
@@ -200,21 +210,25 @@ class ExactSolver(Solver):
             kept = min(count, SNAPSHOTS + state_rows)
             breakdown: dict = {}
             credit(breakdown, MODE_BYTES * kept * across, {"bath.modes": across, "run.samples": kept})
-            credit(breakdown, NODE_BYTES * count * max(nodes(count), default=0),
-                   {"run.samples": count})
+            credit(breakdown, NODE_BYTES * count * max(nodes(count), default=0)
+                   * (1 if bath.dimensions == 1 else 3), {"run.samples": count})
             # rows x sectors x width, capped at STATE_ELEMENTS: the larger factor drives it
             credit(breakdown, STATE_BYTES * elements,
                    {"bath.modes": width, "run.samples": elements // max(sectors * width, 1)})
             credit(breakdown, bath_bytes, {"bath.modes": modes})
             credit(breakdown, SAMPLE_BYTES * count, {"run.samples": count})
-            chunk = CHUNK_BYTES * min(CHUNK_ELEMENTS, count * max(bright, default=0))
+            chunk = CHUNK_BYTES * min(CHUNK_ELEMENTS, count * max(bright, default=0)) * (
+                1 if bath.dimensions == 1 else 3)
             return breakdown, sum(breakdown.values()) + chunk + FIXED_BYTES
 
         breakdown, total = memory(samples)
-        work = sum(8.0 * samples * ((sec.mode_energies.size + 1) * (1 + q) + q * b + 3 * b)
+        # 3D: two neighbouring spectra per sector and two more series (`_evolve_3d`)
+        spectra, series = (1, 1) if bath.dimensions == 1 else (3, 3)
+        work = sum(8.0 * samples * ((sec.mode_energies.size + 1) * (1 + q) * spectra
+                                    + q * b * series + 3 * b * series + SPREAD_WORK * b * (series > 1))
                    for sec, b, q in zip(bath.sectors, bright, nodes(samples)))
         work += 8.0 * reduced_state_elements(bath, samples, width)[0] * (sectors + STATE_PASSES)
-        seconds = work / FLOP_RATE + ROOT_SECONDS * sum(b ** ROOT_POWER for b in bright)
+        seconds = work / FLOP_RATE + spectra * ROOT_SECONDS * sum(b ** ROOT_POWER for b in bright)
         keys = ("bath.modes", "bath.window", "bath.box_length" if bath.dimensions == 1
                 else "bath.radial_nodes", "bath.sectors", "run.samples")
         values = {"bath.modes": modes, "bath.sectors": sectors, "run.samples": samples}
@@ -446,7 +460,7 @@ def _evolve_1d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
         values = p_after[:, None] ** np.arange(3)
         if d is not None:  # Re and Im of exp(i p d) per mode: chi(t) from the same sums
             values = np.hstack([values, np.cos(p_after * d)[:, None], np.sin(p_after * d)[:, None]])
-        sums, bright = spectrum.mode_series(times, values, rows)
+        sums, bright, _ = spectrum.mode_series(times, values, rows)
         moments += sector.weight * (level_p[:, None] * sector.momentum ** np.arange(3) + sums[:, :3])
         if d is not None:
             chi += sector.weight * (level_p * np.exp(1j * sector.momentum * d)
@@ -484,15 +498,32 @@ def _evolve_1d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
 
 
 def _evolve_3d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
-    """3D sectors: population, momentum moments along the packet axis and the axis density."""
+    """3D sectors: population, momentum and position moments along the packet axis and across
+    it, the axis density and the purity.
+
+    The position moments need the amplitudes' slopes in |P| at fixed k: each sector is also
+    solved at |P| -/+ delta (`neighbour_sectors`) for dc/d|P| (`StarSpectrum.level_slope`), and
+    the Duhamel recurrence carries the slopes (`StarSpectrum.mode_series` with `spreading`);
+    `position_moments` projects them on the axes.  The purity is the kicked-packet mixture's
+    (`KickedPurity3D`), withheld where the emitted line's Doppler spread across the packet
+    makes its estimated error exceed PURITY_TOLERANCE (`kicked_purity_error`).
+    """
     packet = packet_for(scenario)
-    grid = axis_grid(scenario, packet, model_for(scenario))
+    model = model_for(scenario)
+    grid = axis_grid(scenario, packet, model)
     excited = np.zeros(times.size)
     moments = np.zeros((times.size, 3))
+    positions = np.zeros((times.size, 3))  # <x_z^2>, <x_z>, <x_perp^2>
     density = np.zeros((grid.size, snaps.size))
     distance = coherence_distance(scenario)
     d = distance[0] if distance is not None else None
     chi = np.zeros(times.size, dtype=complex) if d is not None else None
+    spreads = grid_from_zero(times)
+    step = times[1] - times[0] if spreads else None
+    state_times = ReducedState1D.state_rows(times.size, 1, 1)
+    rows = np.union1d(snaps, state_times)
+    snap_rows, state_rows = np.searchsorted(rows, snaps), np.searchsorted(rows, state_times)
+    kicked = KickedPurity3D(packet, bath, state_times.size)
     for sector, spectrum in zip(bath.sectors, spectra):
         level = spectrum.level_amplitude(times)
         level_p = np.abs(level) ** 2
@@ -504,7 +535,12 @@ def _evolve_3d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
         if d is not None:  # Re and Im of each mode's <exp(i p_z d)>: chi(t) from the same sums
             level_phase, mode_phases = direction_phases(packet, sector, d)
             values = np.hstack([values, mode_phases.real[:, None], mode_phases.imag[:, None]])
-        sums, bright = spectrum.mode_series(times, values, snaps)
+        if spreads:
+            below, above, delta = neighbour_sectors(scenario, bath, sector)
+            neighbours = tuple(star_spectrum(sec.level_energy, sec.mode_energies, sec.couplings)
+                               for sec in (below, above))
+        spreading = (sector.slopes, *neighbours, delta) if spreads else None
+        sums, bright, spread = spectrum.mode_series(times, values, rows, spreading)
         ground, along, along2, across2 = sums[:, :4].T
         if d is not None:
             chi += sector.weight * (level_p * level_phase + sums[:, 4] + 1j * sums[:, 5])
@@ -514,14 +550,40 @@ def _evolve_3d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
             cos1 * (level_p * r + r * ground - along),
             cos2 * (level_p * r * r + r * r * ground - 2 * r * along + along2)
             + (1 - cos2) * across2], axis=1)
-        node_probability = np.abs(spectrum.modes_from_bright(bright).T) ** 2
-        density += sector.weight * axis_density(grid, packet, sector, node_probability)
+        if spreads:
+            slope = spectrum.level_slope(*neighbours, delta, step, times.size, np.zeros(1))[:, 0]
+            positions += sector.weight * position_moments(packet, r, level, slope, spread)
+        probability = np.abs(spectrum.modes_from_bright(bright)) ** 2
+        kicked.add(sector, level_p[state_times], probability[state_rows])
+        density += sector.weight * axis_density(grid, packet, sector, probability[snap_rows].T)
     norm = moments[:, 0]
     mean = moments[:, 1] / norm
     variance = moments[:, 2] / norm - mean ** 2
+    warnings, purity = [], None
+    eta, error = kicked_purity_error(packet, model, bath)
+    error = min(error, 1.0) * (1 - excited[-1])  # the mixture is exact for what has not emitted
+    if error <= PURITY_TOLERANCE:
+        purity = masked(state_times, times.size, kicked.purity())
+    else:
+        warnings.append(f"purity: withheld: the emitted line moves across the packet's momentum "
+                        f"spread by {eta:.2g} of its width, so the quanta's frequencies tell the "
+                        "packet's momenta apart, which the 3D kicked-packet purity leaves out "
+                        f"(estimated error {error:.1%}, above {PURITY_TOLERANCE:.0%}); raise "
+                        "packet.width to narrow the momentum spread, or use field.dimensions = 1 "
+                        "for the exact lattice purity")
+    x_var = transverse = None
+    if spreads:
+        x_var = positions[:, 0] / norm - (positions[:, 1] / norm) ** 2
+        transverse = positions[:, 2] / norm
+    else:
+        warnings.append("x_var: not computed (the amplitudes' slopes in |P| need sample times "
+                        "evenly spaced from t = 0)")
     initial = packet.axis_density(grid)
     # the sampled angles leave a histogram: smooth it over DENSITY_SMOOTHING grid cells
     density = gaussian_filter1d(density, DENSITY_SMOOTHING, axis=0, mode="constant")
     return Evolution(excited=excited, p_mean=mean, p_var=variance, momentum_grid=grid,
                      snapshot_times=times[snaps], momentum_density=density,
-                     initial_density=initial, norm=norm, coherence=chi)
+                     initial_density=initial, norm=norm, coherence=chi, x_var=x_var,
+                     x_var_transverse=transverse, purity=purity, warnings=warnings,
+                     details={"purity_doppler_ratio": eta, "purity_error_estimate": error})
+

@@ -258,7 +258,7 @@ class StarSpectrum:
         empty = np.zeros((self.couplings.size, 0))
         return self.mode_series(times, empty, np.arange(times.size))[1]
 
-    def mode_series(self, times, values, rows) -> tuple[np.ndarray, np.ndarray]:
+    def mode_series(self, times, values, rows, spreading=None):
         """Mode sums of |c_k(t)|^2 at every time, and the bright amplitudes at some of the times.
 
             S(t_n) = sum_k |c_k(t_n)|^2 v_k = sum_i |a_i(t_n)|^2 F_i,
@@ -271,6 +271,14 @@ class StarSpectrum:
         equation (A) (`_cauchy_bright_amplitudes`, O(M^2 T)); the recurrence is used where it is
         the cheaper, i.e. q m < M.
 
+        With `spreading` the recurrence also carries the slopes of the amplitudes with a sector
+        parameter lambda (|P| in 3D), b_i = d a_i / d e_i and d_i = d a_i / d lambda at fixed e_i
+        (`_duhamel_chunks`), and returns the five mode sums of the position moments: with
+        A = g a, B = dA/dlambda = g (gamma a + v b + d), C = g (gamma_u a + v_u b) per mode
+        (`Sector.slopes`),
+
+            sum |A|^2, sum Re A* B, sum Im A* B, sum |B|^2, sum |C|^2.
+
         Parameters
         ----------
         times : array_like, shape (T,)
@@ -279,6 +287,9 @@ class StarSpectrum:
             v_k of each original mode (any units u).
         rows : array_like of int, shape (R,)
             Indices into `times` where the amplitudes are returned.
+        spreading : tuple, optional
+            (slopes, below, above, delta): the modes' slope integrals, shape (N, 8)
+            (`Sector.slopes`), and the spectra of the same sector at lambda -/+ delta.
 
         Returns
         -------
@@ -286,33 +297,103 @@ class StarSpectrum:
             S(t_n) (u).
         amplitudes : ndarray, shape (R, M)
             a_i(times[rows]) (complex, 1 / energy units).
+        spread : ndarray, shape (T, 5), or None
+            The five position sums (units of |g|^2 a^2 times the slopes'), None without
+            `spreading`.
 
         Raises
         ------
         ValueError
-            If `times` is not one-dimensional.
+            If `times` is not one-dimensional, or `spreading` is asked for off a uniform grid
+            from t = 0.
         """
         times = _as_times(times)
         values = np.asarray(values, dtype=float)
-        member = self.modes.member_of
-        coupled = member >= 0
-        projections = np.zeros((self.modes.energies.size, values.shape[1]))
-        np.add.at(projections, member[coupled],
-                  (np.abs(self.couplings[coupled]) ** 2)[:, None] * values[coupled])
+        projections = self._projections(values)
         rows = np.asarray(rows, dtype=int)
         grid = _uniform_grid(times)
         substeps = duhamel_substeps(self.eigenvalues, grid[1]) if grid is not None else 0
-        if grid is not None and grid[0] == 0.0 and DUHAMEL_NODES * substeps < self.modes.energies.size:
-            chunks = self._duhamel_chunks(times.size, grid[1], substeps)
+        from_zero = grid is not None and grid[0] == 0.0
+        if spreading is not None and not from_zero:
+            raise ValueError("the amplitudes' slopes need a uniform time grid from t = 0")
+        if spreading is not None or (from_zero and DUHAMEL_NODES * substeps < self.modes.energies.size):
+            slope = None if spreading is None else spreading[1:]
+            chunks = self._duhamel_chunks(times.size, grid[1], substeps, slope)
         else:
             chunks = self._cauchy_chunks(times)
         series = np.zeros((times.size, projections.shape[1]))
+        spread = None
+        if spreading is not None:
+            weights = np.column_stack([self._projections(np.ones((self.couplings.size, 1))),
+                                       self._projections(spreading[0], weighted=False)])
+            spread, coefficients = np.zeros((times.size, 5)), _spreading_coefficients(weights)
         amplitudes = np.zeros((rows.size, self.modes.energies.size), dtype=complex)
         for first, block in chunks:
-            series[first:first + len(block)] = (np.abs(block) ** 2) @ projections
-            inside = (rows >= first) & (rows < first + len(block))
-            amplitudes[inside] = block[rows[inside] - first]
-        return series, amplitudes
+            level = block if spreading is None else block[0]
+            series[first:first + len(level)] = (np.abs(level) ** 2) @ projections
+            if spreading is not None:
+                spread[first:first + len(level)] = np.einsum(
+                    "pbm,pmj->bj", _amplitude_products(block), coefficients)
+            inside = (rows >= first) & (rows < first + len(level))
+            amplitudes[inside] = level[rows[inside] - first]
+        return series, amplitudes, spread
+
+    def _projections(self, values, weighted: bool = True) -> np.ndarray:
+        """F_i = sum_{k in i} |g_k|^2 v_k for each bright mode i, shape (M, K); without the
+        |g_k|^2 when `weighted` is False (values already weighted)."""
+        member = self.modes.member_of
+        coupled = member >= 0
+        projections = np.zeros((self.modes.energies.size, values.shape[1]))
+        scale = np.abs(self.couplings[coupled]) ** 2 if weighted else np.ones(coupled.sum())
+        np.add.at(projections, member[coupled], scale[:, None] * values[coupled])
+        return projections
+
+    def phase_free_level(self, step: float, count: int, offsets) -> np.ndarray:
+        """c(t) exp(i E0 t) at t = n h + s_r (`_grid_level_amplitudes` of z_j - E0).
+
+        Returns
+        -------
+        ndarray, shape (count, R)
+            (complex, dimensionless).
+        """
+        return _grid_level_amplitudes(self.eigenvalues - self.level_energy, self.residues, step,
+                                      count, offsets)
+
+    def level_slope(self, below, above, delta: float, step: float, count: int, offsets):
+        """dc / dlambda at t = n h + s_r from this sector's spectra at lambda -/+ delta.
+
+        c = exp(-i E0 t) c~ with c~ slowly varying in lambda, so
+
+            dc / dlambda = exp(-i E0 t) [ (c~(lambda + delta) - c~(lambda - delta)) / (2 delta)
+                                          - i t E0' c~ ],   E0' = (E0+ - E0-) / (2 delta),
+
+        central differences of the phase-free amplitudes only (error O(delta^2)).
+
+        Parameters
+        ----------
+        below, above : StarSpectrum
+            The sector at lambda - delta and lambda + delta.
+        delta : float
+            The step (units of lambda).
+        step : float
+            h (time units).
+        count : int
+            Grid times n = 0 .. count - 1.
+        offsets : ndarray, shape (R,)
+            s_r (time units).
+
+        Returns
+        -------
+        ndarray, shape (count, R)
+            dc / dlambda (complex, 1 / units of lambda).
+        """
+        offsets = np.asarray(offsets, dtype=float)
+        t = step * np.arange(count)[:, None] + offsets[None, :]
+        slow = (above.phase_free_level(step, count, offsets)
+                - below.phase_free_level(step, count, offsets)) / (2 * delta)
+        rate = (above.level_energy - below.level_energy) / (2 * delta)
+        return _unit_phases(self.level_energy * t) * (
+            slow - 1j * t * rate * self.phase_free_level(step, count, offsets))
 
     def _cauchy_chunks(self, times):
         """(first row, a_i at a block of consecutive times) by the Cauchy sums, any times."""
@@ -335,7 +416,7 @@ class StarSpectrum:
                 bright[:, cols] += weighted_cos @ cauchy - 1j * (weighted_sin @ cauchy)
         return bright
 
-    def _duhamel_chunks(self, count: int, step: float, substeps: int):
+    def _duhamel_chunks(self, count: int, step: float, substeps: int, slope=None):
         """(first row, a_i at consecutive grid times t_n = n h) by the exact Duhamel recurrence.
 
         From i da_i/dt = e_i a_i + c, a_i(0) = 0:
@@ -348,6 +429,15 @@ class StarSpectrum:
         (`_grid_level_amplitudes`); the recurrence runs over the steps with the one-step phase
         exp(-i e_i h) (unit modulus, so rounding errors add up linearly, not exponentially).
 
+        With `slope` = (below, above, delta) two more series run beside a_i, with the same
+        nodes: b_i = da_i / de_i = -Int_0^t (t - s) exp(-i e_i (t - s)) c(s) ds, i.e.
+
+            b_i(t_(n+1)) = exp(-i e_i h) (b_i(t_n) - i h a_i(t_n))
+                           - Int_0^h (h - s) exp(-i e_i (h - s)) c(t_n + s) ds,
+
+        and d_i = da_i / dlambda at fixed e_i, the recurrence of a_i with c replaced by
+        dc / dlambda (`level_slope`).
+
         Parameters
         ----------
         count : int
@@ -356,35 +446,80 @@ class StarSpectrum:
             h (time units).
         substeps : int
             m (>= 1).
+        slope : tuple, optional
+            (below, above, delta) for `level_slope`.
 
         Yields
         ------
         first : int
             Index of the block's first time.
-        block : ndarray, shape (B, M)
-            a_i(t_n) for n = first .. first + B - 1 (complex, 1 / energy units).
+        block : ndarray, shape (B, M), or (3, B, M) with `slope` (a, b, d)
+            a_i(t_n) for n = first .. first + B - 1 (complex, 1 / energy units; b in
+            1 / energy^2, d in 1 / (energy x units of lambda)).
         """
         nodes, node_weights = np.polynomial.legendre.leggauss(DUHAMEL_NODES)
         part = step / substeps
         offsets = (np.arange(substeps)[:, None] + 0.5 * (nodes[None, :] + 1)).ravel() * part
         weights = np.tile(0.5 * part * node_weights, substeps)
-        level = _grid_level_amplitudes(self.eigenvalues, self.residues, step, count - 1, offsets)
         poles = self.modes.energies
         kernel = (-1j * weights[:, None]) * _unit_phases(np.outer(step - offsets, poles))
+        sources = [_grid_level_amplitudes(self.eigenvalues, self.residues, step, count - 1, offsets)]
+        kernels = [kernel]
+        if slope is not None:
+            sources += [sources[0], self.level_slope(*slope, step, count - 1, offsets)]
+            kernels += [kernel * (-1j * (step - offsets))[:, None], kernel]
         rotation = _unit_phases(step * poles)
-        previous = np.zeros(poles.size, dtype=complex)
-        size = max(1, CHUNK_ELEMENTS // max(poles.size, 1))
+        series = len(sources)
+        previous = np.zeros((series, poles.size), dtype=complex)
+        size = max(1, CHUNK_ELEMENTS // max(poles.size * series, 1))
         for first in range(0, count, size):
             stop = min(first + size, count)
-            block = np.zeros((stop - first, poles.size), dtype=complex)
+            block = np.zeros((series, stop - first, poles.size), dtype=complex)
             steps = np.arange(max(first, 1), stop)  # D_(n-1) lands on row n
-            block[steps - first] = level[steps - 1] @ kernel
-            turned = np.empty(poles.size, dtype=complex)
+            for which in range(series):
+                block[which, steps - first] = sources[which][steps - 1] @ kernels[which]
             for row in range(stop - first):
                 if first + row > 0:
-                    block[row] += np.multiply(rotation, previous, out=turned)
-                previous = block[row]
-            yield first, block
+                    if series > 1:  # b picks up -i h a from the step before a is advanced
+                        block[1, row] += rotation * (previous[1] - 1j * step * previous[0])
+                        block[2, row] += rotation * previous[2]
+                    block[0, row] += rotation * previous[0]
+                previous = block[:, row]
+            yield first, block[0] if slope is None else block
+
+
+def _amplitude_products(block) -> np.ndarray:
+    """|a|^2, |b|^2, |d|^2, Re a* b, Im a* b, Re a* d, Im a* d, Re b* d of a (3, B, M) block."""
+    a, b, d = block
+    ab, ad, bd = np.conj(a) * b, np.conj(a) * d, np.conj(b) * d
+    return np.stack([np.abs(a) ** 2, np.abs(b) ** 2, np.abs(d) ** 2, ab.real, ab.imag,
+                     ad.real, ad.imag, bd.real])
+
+
+def _spreading_coefficients(weights) -> np.ndarray:
+    """Coefficients (8 products, M, 5 sums) of the position sums from the bright slope weights.
+
+    weights columns: W = sum |g|^2, then the sums of |g|^2 times gamma, v, gamma^2, v^2,
+    gamma v, (1-u^2) gamma_u^2, (1-u^2) v_u^2, (1-u^2) gamma_u v_u (`Sector.slopes`).  With
+    A = g a, B = g (gamma a + v b + d), C = g (gamma_u a + v_u b):
+
+        sum |A|^2     = W |a|^2
+        sum Re A* B   = W_gamma |a|^2 + W_v Re a* b + W Re a* d
+        sum Im A* B   = W_v Im a* b + W Im a* d
+        sum |B|^2     = W_gg |a|^2 + W_vv |b|^2 + W |d|^2 + 2 W_gv Re a* b + 2 W_gamma Re a* d
+                        + 2 W_v Re b* d
+        sum |C|^2     = W_uu |a|^2 + W_uv |b|^2 + 2 W_uguv Re a* b
+    """
+    w, g, v, gg, vv, gv, uu, uv, ug = weights.T
+    out = np.zeros((8, weights.shape[0], 5))
+    aa, bb, dd, rab, iab, rad, iad, rbd = range(8)
+    out[aa, :, 0] = w
+    out[aa, :, 1], out[rab, :, 1], out[rad, :, 1] = g, v, w
+    out[iab, :, 2], out[iad, :, 2] = v, w
+    out[aa, :, 3], out[bb, :, 3], out[dd, :, 3] = gg, vv, w
+    out[rab, :, 3], out[rad, :, 3], out[rbd, :, 3] = 2 * gv, 2 * g, 2 * v
+    out[aa, :, 4], out[bb, :, 4], out[rab, :, 4] = uu, uv, 2 * ug
+    return out
 
 
 def duhamel_substeps(eigenvalues, step: float) -> int:
@@ -945,6 +1080,23 @@ def _blocks(count, row_length, elements=None):
     (elements defaults to _BLOCK_ELEMENTS)."""
     size = max(1, (elements or _BLOCK_ELEMENTS) // max(row_length, 1))
     return [slice(start, min(start + size, count)) for start in range(0, count, size)]
+
+
+def grid_from_zero(times) -> bool:
+    """Whether `times` is a uniform grid t_n = n h from t = 0 (at least 4 times), on which the
+    Duhamel recurrence and the amplitudes' slopes run (`StarSpectrum.mode_series`).
+
+    Parameters
+    ----------
+    times : array_like
+        Times (time units).
+
+    Returns
+    -------
+    bool
+    """
+    grid = _uniform_grid(_as_times(times))
+    return grid is not None and grid[0] == 0.0
 
 
 def _uniform_grid(times):
