@@ -54,7 +54,7 @@ _GRID_RTOL = 8 * np.finfo(float).eps  # times closer than this to t_0 + n dt cou
 _PANEL_MIN_POLES = 1024  # from this many bright modes on, far poles are interpolated (measured)
 _PANEL_SCALE = 2.0  # panel size / sqrt(M): balances the interpolants' set-up against near sums
 _NEAR_REACH = 2.0  # poles within this many panel half-widths of a panel are summed directly
-_CHEBYSHEV_NODES = 28  # far poles >= 3 half-widths from the centre: (3 + sqrt 8)^-28 ~ 3e-22
+_CHEBYSHEV_NODES = 22  # far poles >= 3 half-widths from the centre: (3 + sqrt 8)^-22 ~ 1.5e-17
 _STEP_RTOL = 4 * np.finfo(float).eps  # a root is converged when its last correction is this small
 _MAX_STEPS = 64  # the local model converges in ~4 steps; bisection bounds the worst case
 #: Gauss-Legendre nodes per part of a step in the Duhamel recurrence
@@ -350,6 +350,15 @@ class StarSpectrum:
 
     def phase_free_level(self, step: float, count: int, offsets) -> np.ndarray:
         """c(t) exp(i E0 t) at t = n h + s_r (`_grid_level_amplitudes` of z_j - E0).
+
+        Parameters
+        ----------
+        step : float
+            h (time units).
+        count : int
+            Grid times n = 0 .. count - 1.
+        offsets : ndarray, shape (R,)
+            s_r (time units).
 
         Returns
         -------
@@ -984,9 +993,11 @@ class PanelledPoleSums:
         self.near_lo = np.searchsorted(poles, lo - _NEAR_REACH * self.half, side="left")
         self.near_hi = np.searchsorted(poles, hi + _NEAR_REACH * self.half, side="right")
         #: per panel, (nodes, 2): Chebyshev coefficients of both far sums
+        transform = _chebyshev_transform()
         self.coefficients = np.array([
-            _far_sum_coefficients(poles, weights, centre, half, np.r_[0:a, b:poles.size])
-            for centre, half, a, b in zip(self.centre, self.half, self.near_lo, self.near_hi)])
+            _far_sum_coefficients(poles, weights, centre, half, near, transform)
+            for centre, half, near in zip(self.centre, self.half,
+                                          map(slice, self.near_lo, self.near_hi))])
 
     def __call__(self, roots, anchor, offset):
         """The two pole sums at z = poles[anchor] + offset, the anchor pole left out.
@@ -1032,21 +1043,34 @@ class PanelledPoleSums:
         return first, second
 
 
-def _far_sum_coefficients(poles, weights, centre, half, far):
+def _far_sum_coefficients(poles, weights, centre, half, near, transform):
     """Chebyshev coefficients, shape (_CHEBYSHEV_NODES, 2), of the two far-pole sums.
 
-    sum_far b_i/(z - e_i) and sum_far b_i/(z - e_i)^2 on [centre - half, centre + half],
-    interpolated at the first-kind nodes x_m = cos(pi (m + 1/2) / n):
-    c_k = (2 - [k = 0]) / n sum_m T_k(x_m) f(x_m) (Trefethen, Approximation Theory and
-    Approximation Practice, ch. 8).
+    sum_far b_i/(z - e_i) and sum_far b_i/(z - e_i)^2 on [centre - half, centre + half], the
+    far poles being all but the slice `near` (their Cauchy entries zeroed, not subtracted),
+    interpolated at the first-kind nodes x_m of `_chebyshev_transform` (which maps the values
+    there to the coefficients).
     """
-    nodes = np.cos(np.pi * (np.arange(_CHEBYSHEV_NODES) + 0.5) / _CHEBYSHEV_NODES)
-    cauchy = _cauchy_block(centre + half * nodes, np.zeros(nodes.size), poles[far])
-    values = np.stack([cauchy @ weights[far], np.square(cauchy) @ weights[far]], axis=1)
-    coefficients = (2.0 / nodes.size) * (np.polynomial.chebyshev.chebvander(
-        nodes, _CHEBYSHEV_NODES - 1).T @ values)
-    coefficients[0] *= 0.5
-    return coefficients
+    nodes = _chebyshev_nodes()
+    cauchy = _cauchy_block(centre + half * nodes, np.zeros(nodes.size), poles)
+    cauchy[:, near] = 0.0
+    values = np.stack([cauchy @ weights, np.square(cauchy, out=cauchy) @ weights], axis=1)
+    return transform @ values
+
+
+def _chebyshev_nodes() -> np.ndarray:
+    """The first-kind Chebyshev nodes x_m = cos(pi (m + 1/2) / n), n = _CHEBYSHEV_NODES."""
+    return np.cos(np.pi * (np.arange(_CHEBYSHEV_NODES) + 0.5) / _CHEBYSHEV_NODES)
+
+
+def _chebyshev_transform() -> np.ndarray:
+    """Values at `_chebyshev_nodes` -> Chebyshev coefficients, shape (n, n):
+    c_k = (2 - [k = 0]) / n sum_m T_k(x_m) f(x_m) (Trefethen, Approximation Theory and
+    Approximation Practice, ch. 8)."""
+    nodes = _chebyshev_nodes()
+    transform = (2.0 / nodes.size) * np.polynomial.chebyshev.chebvander(nodes, nodes.size - 1).T
+    transform[0] *= 0.5
+    return transform
 
 
 def _local_model_step(offset, value, slope_rest, anchor_weight, far_end):
