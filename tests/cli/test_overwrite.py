@@ -109,6 +109,7 @@ def test_out_dot_is_refused_cleanly_and_touches_nothing(scenario_file, tmp_path,
     assert sorted(p.name for p in tmp_path.iterdir()) == ["notes.txt", "s.toml"]
 
 
+@pytest.mark.slow
 def test_nested_out_with_trailing_slash_is_written(scenario_file, tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)
     assert main(["run", str(scenario_file), "--out", "a/b/c/"]) == 0

@@ -42,9 +42,9 @@ DIRECTION_NODES = 32
 #: 3D purity: |k| bins per packet momentum width sigma_p (the overlap's scale in |k|; the
 #: linear deposit makes the binning error O((bin / sigma_p)^2)), and at most this many bins
 KICK_BINS_PER_SIGMA, KICK_BINS = 8, 2048
-#: 3D purity: largest Legendre order of the kick directions' overlap expansion, and the
-#: relative size of an order's moments below which it is left out
-KICK_ORDERS, KICK_NEGLIGIBLE = 400, 1e-9
+#: 3D purity: largest Legendre order of the kick directions' overlap expansion, and the bound
+#: on an order's contribution below which it is left out
+KICK_ORDERS, KICK_NEGLIGIBLE = 400, 1e-15
 #: 3D purity: the Fourier integral of the kicked packets' overlap runs to this many / sigma_p
 #: (its Gaussian weight exp(-sigma^2 y^2) is 6e-14 there)
 KICK_REACH = 5.5
@@ -607,11 +607,13 @@ class KickedPurity3D:
         periods = float(k.max()) * reach / np.pi
         y, w = gauss_legendre_on(int(math.ceil(2 * periods)) + 32, 0.0, reach)
         w = w * y * y * np.exp(-s2 * y * y) * 4 * np.pi * (s2 / np.pi) ** 1.5
-        scale = np.max(np.abs(moments[:, 0]), initial=0.0)
         for order in range(self.orders + 1):
             moment = moments[:, order]
-            if not np.max(np.abs(moment), initial=0.0) > KICK_NEGLIGIBLE * scale:
-                continue  # e.g. every l > 0 for an isotropic packet
+            # |j_l| <= 1 and the y weights integrate to at most 1, so the order adds at most
+            # (2 l + 1) (sum_b |F_l(b)|)^2: left out below KICK_NEGLIGIBLE (e.g. every l > 0 for
+            # an isotropic packet, or every order before anything is emitted)
+            if (2 * order + 1) * np.max(np.sum(np.abs(moment), axis=1)) ** 2 < KICK_NEGLIGIBLE:
+                continue
             amplitude = moment @ spherical_bessel(order, np.outer(k, y))
             total += (2 * order + 1) * (amplitude * amplitude) @ w
         return total

@@ -101,6 +101,7 @@ def test_which_path_visibility_after_complete_decay_in_1d(make_scenario):
     assert abs(visibility - abs(math.cos(k_star * 2.0))) > 5e-3  # the two are told apart
 
 
+@pytest.mark.slow
 def test_file_packet_evolves_like_the_same_gaussian(make_scenario, tmp_path):
     """A "file" packet tabulating the Gaussian amplitude finely (401 rows, resampled to 96
     Gauss-Legendre sectors) decays as the Gaussian packet on the unthinned box lattice, all box
