@@ -301,8 +301,7 @@ def draw_variance(result, ax=None):
     missing = [name for name, values in (("Var x", result.x_var), ("the purity", result.purity))
                if not np.any(np.isfinite(values))]
     if missing:
-        add_note(ax, [f"{result.method} does not compute {' or '.join(missing)} for this run"],
-                 loc="lower right")
+        add_note(ax, [missing_note(result, missing)], loc="lower right")
     if both:
         twin = ax.twinx()
         known = np.isfinite(result.x_var)  # x_var may be held at a subset of the times
@@ -322,6 +321,29 @@ def draw_variance(result, ax=None):
     ax.set_title("packet spreading (simulated)", fontsize=10)
     ax.legend(lines, [line.get_label() for line in lines], fontsize=LEGEND_SIZE, loc="upper left")
     return ax
+
+
+def missing_note(result, names: list[str]) -> str:
+    """The note for quantities a run does not give: withheld (with the warning that says why)
+    or not computed by its method.
+
+    Parameters
+    ----------
+    result : Result
+    names : list of str
+        What is missing ("Var x", "the purity").
+
+    Returns
+    -------
+    str
+    """
+    key = {"Var x": "x_var", "the purity": "purity"}
+    withheld = [name for name in names
+                if any(w.startswith(f"{key[name]}: withheld") for w in result.warnings)]
+    others = [name for name in names if name not in withheld]
+    parts = ([f"{' and '.join(withheld)} withheld (see the summary's warnings)"] if withheld else []) + (
+        [f"{result.method} does not compute {' or '.join(others)}"] if others else [])
+    return "; ".join(parts) + " for this run"
 
 
 def has_purity(result) -> bool:
@@ -360,7 +382,7 @@ def draw_purity(result, ax=None):
                 lw=2, label=r"purity $\mathrm{Tr}\,\rho_{\mathrm{COM}}^2$ (simulated)")
         ax.legend(fontsize=LEGEND_SIZE)
     else:
-        add_note(ax, [f"{result.method} does not compute the purity"], loc="center")
+        add_note(ax, [missing_note(result, ["the purity"])], loc="center")
     ax.set_ylim(0.0, 1.05)
     ax.set_xlabel(time_label(scenario))
     ax.set_ylabel(r"purity $\mathrm{Tr}\,\rho_{\mathrm{COM}}^2$")

@@ -134,3 +134,18 @@ def test_recoil_map_shows_every_snapshot_over_the_run(results, name):
 def test_purity_is_a_drawer_of_result_plot(results):
     ax = results["exact-1d"].plot(figure="purity")
     assert ax.get_lines() and "purity" in ax.get_ylabel()
+
+
+def test_a_withheld_quantity_is_named_as_withheld_not_as_uncomputed():
+    # a purity the run withheld (its reason in the warnings) is not "not computed" by the method
+    from types import SimpleNamespace
+
+    from sim.plotting.run_figures import missing_note
+
+    run = SimpleNamespace(method="exact", warnings=["purity: withheld: the emitted line moves"])
+    assert missing_note(run, ["the purity"]) == ("the purity withheld (see the summary's "
+                                                 "warnings) for this run")
+    assert missing_note(run, ["Var x", "the purity"]) == (
+        "the purity withheld (see the summary's warnings); exact does not compute Var x for this run")
+    assert missing_note(SimpleNamespace(method="fock", warnings=[]), ["Var x"]) == (
+        "fock does not compute Var x for this run")

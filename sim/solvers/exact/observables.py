@@ -23,6 +23,7 @@ import numpy as np
 from scipy import sparse
 
 from ...physics.field import packet_for
+from ...physics.models import EXCITED
 from ...physics.quadrature import gauss_legendre_on
 from ..common import bin_index, cell_edges
 from .baths import Bath
@@ -711,8 +712,6 @@ def kicked_purity_error(packet, model, bath: Bath) -> tuple[float, float]:
         The estimated relative error of the mixture's purity after a complete decay
         (dimensionless; the caller scales it by the emitted fraction).
     """
-    from ...physics.models import EXCITED
-
     spread = width = total = 0.0
     for sector in bath.sectors:
         near = np.abs(sector.mode_energies - sector.level_energy) < bath.spacing
