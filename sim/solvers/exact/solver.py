@@ -15,9 +15,10 @@ projected by the conditional direction moments of the Gaussian packet
 (`Packet.direction_moments`).  In 1D the reduced COM state follows on the momentum lattice
 (`observables.ReducedState1D`).  In 3D the position variances along the axis and across it
 come from the amplitudes' slopes in |P| at fixed k (`observables.position_moments`), the
-purity from the mixture of kicked packets (`observables.KickedPurity3D`).  The mode amplitudes follow from the level amplitude by the
-exact Duhamel recurrence on the sample grid (`star.StarSpectrum.mode_series`), so the recoil
-observables at every sample time cost O(modes) per sector and time, as the decay itself does.
+purity from the mixture of kicked packets (`observables.KickedPurity3D`).  The mode
+amplitudes follow from the level amplitude by the exact Duhamel recurrence on the sample grid
+(`star.StarSpectrum.mode_series`), so the recoil observables at every sample time cost O(modes)
+per sector and time, as the decay itself does.
 """
 
 from __future__ import annotations
@@ -551,7 +552,8 @@ def _evolve_3d(scenario, bath: Bath, spectra, times, snaps) -> Evolution:
             cos2 * (level_p * r * r + r * r * ground - 2 * r * along + along2)
             + (1 - cos2) * across2], axis=1)
         if spreads:
-            slope = spectrum.level_slope(*neighbours, delta, step, times.size, np.zeros(1))[:, 0]
+            slope = spectrum.level_slope(*neighbours, delta, step, times.size, np.zeros(1),
+                                         level[:, None])[:, 0]
             positions += sector.weight * position_moments(packet, r, level, slope, spread)
         probability = np.abs(spectrum.modes_from_bright(bright)) ** 2
         kicked.add(sector, level_p[state_times], probability[state_rows])

@@ -368,15 +368,16 @@ class StarSpectrum:
         return _grid_level_amplitudes(self.eigenvalues - self.level_energy, self.residues, step,
                                       count, offsets)
 
-    def level_slope(self, below, above, delta: float, step: float, count: int, offsets):
+    def level_slope(self, below, above, delta: float, step: float, count: int, offsets, level):
         """dc / dlambda at t = n h + s_r from this sector's spectra at lambda -/+ delta.
 
         c = exp(-i E0 t) c~ with c~ slowly varying in lambda, so
 
-            dc / dlambda = exp(-i E0 t) [ (c~(lambda + delta) - c~(lambda - delta)) / (2 delta)
-                                          - i t E0' c~ ],   E0' = (E0+ - E0-) / (2 delta),
+            dc / dlambda = exp(-i E0 t) (c~(lambda + delta) - c~(lambda - delta)) / (2 delta)
+                           - i t E0' c,   E0' = (E0+ - E0-) / (2 delta),
 
-        central differences of the phase-free amplitudes only (error O(delta^2)).
+        central differences of the phase-free amplitudes only (error O(delta^2)); c itself is
+        the caller's, already computed at those times.
 
         Parameters
         ----------
@@ -390,6 +391,8 @@ class StarSpectrum:
             Grid times n = 0 .. count - 1.
         offsets : ndarray, shape (R,)
             s_r (time units).
+        level : ndarray, shape (count, R)
+            c of this sector at those times (complex, dimensionless).
 
         Returns
         -------
@@ -401,8 +404,7 @@ class StarSpectrum:
         slow = (above.phase_free_level(step, count, offsets)
                 - below.phase_free_level(step, count, offsets)) / (2 * delta)
         rate = (above.level_energy - below.level_energy) / (2 * delta)
-        return _unit_phases(self.level_energy * t) * (
-            slow - 1j * t * rate * self.phase_free_level(step, count, offsets))
+        return _unit_phases(self.level_energy * t) * slow - 1j * t * rate * level
 
     def _cauchy_chunks(self, times):
         """(first row, a_i at a block of consecutive times) by the Cauchy sums, any times."""
@@ -475,7 +477,7 @@ class StarSpectrum:
         sources = [_grid_level_amplitudes(self.eigenvalues, self.residues, step, count - 1, offsets)]
         kernels = [kernel]
         if slope is not None:
-            sources += [sources[0], self.level_slope(*slope, step, count - 1, offsets)]
+            sources += [sources[0], self.level_slope(*slope, step, count - 1, offsets, sources[0])]
             kernels += [kernel * (-1j * (step - offsets))[:, None], kernel]
         rotation = _unit_phases(step * poles)
         series = len(sources)
