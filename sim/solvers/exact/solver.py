@@ -41,7 +41,7 @@ from .bound import bound_states, packet_bound_states
 from .observables import (PURITY_TOLERANCE, STATE_ELEMENTS, KickedPurity3D, ReducedState1D,
                           axis_density, direction_phases, kicked_purity_error, lattice_density,
                           position_moments)
-from .star import (CHUNK_ELEMENTS, DUHAMEL_NODES, duhamel_substeps, grid_from_zero,
+from .star import (CHUNK_ELEMENTS, duhamel_rule, grid_from_zero,
                    sector_lamb_shift, star_spectrum)
 
 #: 3D axis density: Gaussian smoothing of the sampled histogram, in grid cells
@@ -380,7 +380,7 @@ def reduced_state_elements(bath: Bath, samples: int, width: int | None = None) -
 def duhamel_nodes(sector, step: float) -> int:
     """Duhamel quadrature nodes per sample step of a sector, from its energies alone.
 
-    q m with m = `duhamel_substeps` for the span of the level and mode energies widened by
+    m q of `duhamel_rule` for the span of the level and mode energies widened by
     twice the total coupling sqrt(sum |g|^2) (the eigenvalues lie within it: Weyl's
     inequality); 0 where the Cauchy sums are used instead (q m >= bright modes).
 
@@ -398,7 +398,8 @@ def duhamel_nodes(sector, step: float) -> int:
     energies = np.append(sector.mode_energies, sector.level_energy)
     reach = 2 * math.sqrt(sector.coupling_sum)
     span = np.array([energies.min() - reach, energies.max() + reach])
-    count = DUHAMEL_NODES * duhamel_substeps(span, step)
+    parts, nodes = duhamel_rule(span, step)
+    count = parts * nodes
     return count if count < np.unique(sector.mode_energies).size else 0
 
 

@@ -19,7 +19,7 @@ from scipy.integrate import trapezoid
 from sim.physics.checks import load_scenario, with_keys
 from sim.solvers.common import sample_times
 from sim.solvers.exact.solver import ExactSolver
-from sim.solvers.exact.star import DUHAMEL_NODES, duhamel_substeps, star_spectrum
+from sim.solvers.exact.star import duhamel_rule, star_spectrum
 
 from .test_level_amplitude import dense_amplitudes, random_star
 
@@ -34,9 +34,10 @@ def test_duhamel_mode_amplitudes_match_dense_diagonalisation(size, t_max):
     star = random_star(rng, size, degenerate=5, uncoupled=7)
     spectrum = star_spectrum(*star)
     times = np.linspace(0.0, t_max, 81)
-    assert DUHAMEL_NODES * duhamel_substeps(spectrum.eigenvalues, times[1]) < spectrum.modes.energies.size
+    parts, nodes = duhamel_rule(spectrum.eigenvalues, times[1])
+    assert parts * nodes < spectrum.modes.energies.size
     if t_max > 100:
-        assert duhamel_substeps(spectrum.eigenvalues, times[1]) > 1
+        assert parts > 1
     level, modes = dense_amplitudes(*star, times)
     rows = np.array([0, 17, 80])
     values = np.stack([np.ones(size), np.linspace(-1, 1, size)], axis=1)
@@ -129,3 +130,21 @@ def test_coarse_sectors_are_named_in_a_warning():
     warnings = ExactSolver(scenario).run().warnings
     assert any(w.startswith("momentum density: the sectors sit") and "raise bath.sectors" in w
                for w in warnings)
+
+
+@pytest.mark.parametrize("phase", [0.3, 4.0, 13.0, 19.9, 20.1, 55.0])
+def test_duhamel_rule_integrates_the_fastest_phase_to_rounding(phase):
+    # The rule of one step h must integrate exp(i w s) over [0, h] for every |w| up to the span
+    # W, against the closed form (exp(i w h) - 1) / (i w) (calculus), within 1e-13 h.
+    step = 2.5
+    eigenvalues = np.array([0.0, 0.4, phase / step])
+    parts, nodes = duhamel_rule(eigenvalues, step)
+    x, w = np.polynomial.legendre.leggauss(nodes)
+    part = step / parts
+    offsets = ((np.arange(parts)[:, None] + 0.5 * (x + 1)).ravel()) * part
+    weights = np.tile(0.5 * part * w, parts)
+    for frequency in np.linspace(0.05, 1.0, 40) * phase / step:
+        exact = (np.exp(1j * frequency * step) - 1) / (1j * frequency)
+        assert abs(np.exp(1j * frequency * offsets) @ weights - exact) <= 1e-13 * step
+    # fewer nodes than the most where the phase allows it
+    assert nodes < 16 if phase / parts < 17 else nodes == 16
