@@ -41,7 +41,7 @@ from .bound import bound_states, packet_bound_states
 from .observables import (PURITY_TOLERANCE, STATE_ELEMENTS, KickedPurity3D, ReducedState1D,
                           axis_density, direction_phases, kicked_purity_error, lattice_density,
                           position_moments)
-from .star import (CHUNK_ELEMENTS, duhamel_rule, grid_from_zero,
+from .star import (chunk_rows, duhamel_rule, grid_from_zero,
                    sector_lamb_shift, star_spectrum)
 
 #: 3D axis density: Gaussian smoothing of the sampled histogram, in grid cells
@@ -218,8 +218,8 @@ class ExactSolver(Solver):
                    {"bath.modes": width, "run.samples": elements // max(sectors * width, 1)})
             credit(breakdown, bath_bytes, {"bath.modes": modes})
             credit(breakdown, SAMPLE_BYTES * count, {"run.samples": count})
-            chunk = CHUNK_BYTES * min(CHUNK_ELEMENTS, count * max(bright, default=0)) * (
-                1 if bath.dimensions == 1 else 3)
+            series, widest = (1 if bath.dimensions == 1 else 3), max(bright, default=0)
+            chunk = CHUNK_BYTES * min(count, chunk_rows(widest, series)) * widest * series
             return breakdown, sum(breakdown.values()) + chunk + FIXED_BYTES
 
         breakdown, total = memory(samples)

@@ -65,8 +65,11 @@ DUHAMEL_PHASE = 20.0
 #: largest error of the Duhamel rule on exp(i w s) over one part, relative to the part's length
 DUHAMEL_TOLERANCE = 1e-13
 #: amplitudes per block of the Duhamel recurrence (2 MiB of complex numbers: a block, its
-#: squares and projections stay in the cache; measured 1.4x faster than 16 MiB blocks)
+#: squares and projections stay in the cache; measured 1.2-1.4x faster than 16 MiB blocks)
 CHUNK_ELEMENTS = 1 << 17
+#: fewest times per block: each block reads the whole (nodes x modes) kernel once, so with
+#: 1e5 modes blocks of one or three times made the recurrence memory-bound (measured)
+CHUNK_MIN_ROWS = 8
 
 
 @dataclass(frozen=True)
@@ -486,7 +489,7 @@ class StarSpectrum:
         rotation = _unit_phases(step * poles)
         series = len(sources)
         previous = np.zeros((series, poles.size), dtype=complex)
-        size = max(1, CHUNK_ELEMENTS // max(poles.size * series, 1))
+        size = chunk_rows(poles.size, series)
         for first in range(0, count, size):
             stop = min(first + size, count)
             block = np.zeros((series, stop - first, poles.size), dtype=complex)
@@ -535,6 +538,22 @@ def _spreading_coefficients(weights) -> np.ndarray:
     out[rab, :, 3], out[rad, :, 3], out[rbd, :, 3] = 2 * gv, 2 * g, 2 * v
     out[aa, :, 4], out[bb, :, 4], out[rab, :, 4] = uu, uv, 2 * ug
     return out
+
+
+def chunk_rows(modes: int, series: int) -> int:
+    """Times per block of the Duhamel recurrence: CHUNK_ELEMENTS amplitudes of `series`
+    series over `modes` bright modes, but at least CHUNK_MIN_ROWS.
+
+    Parameters
+    ----------
+    modes, series : int
+        Bright modes M and series (1, or 3 with the slopes).
+
+    Returns
+    -------
+    int
+    """
+    return max(CHUNK_MIN_ROWS, CHUNK_ELEMENTS // max(modes * series, 1))
 
 
 def duhamel_rule(eigenvalues, step: float) -> tuple[int, int]:
