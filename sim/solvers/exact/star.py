@@ -474,11 +474,7 @@ class StarSpectrum:
             a_i(t_n) for n = first .. first + B - 1 (complex, 1 / energy units; b in
             1 / energy^2, d in 1 / (energy x units of lambda)).
         """
-        substeps, node_count = rule
-        nodes, node_weights = np.polynomial.legendre.leggauss(node_count)
-        part = step / substeps
-        offsets = (np.arange(substeps)[:, None] + 0.5 * (nodes[None, :] + 1)).ravel() * part
-        weights = np.tile(0.5 * part * node_weights, substeps)
+        offsets, weights = duhamel_quadrature(step, rule)
         poles = self.modes.energies
         kernel = (-1j * weights[:, None]) * _unit_phases(np.outer(step - offsets, poles))
         sources = [_grid_level_amplitudes(self.eigenvalues, self.residues, step, count - 1, offsets)]
@@ -585,6 +581,29 @@ def duhamel_rule(eigenvalues, step: float) -> tuple[int, int]:
     limits = _gauss_phase_limits()
     nodes = 1 + int(np.searchsorted(limits, span * step / parts))
     return parts, min(nodes, DUHAMEL_NODES)
+
+
+def duhamel_quadrature(step: float, rule: tuple[int, int]):
+    """Nodes s and weights of the Duhamel rule on [0, h]: q-point Gauss-Legendre on each of m
+    equal parts, for Int_0^h F(s) ds ~ sum_r weight_r F(s_r).
+
+    Parameters
+    ----------
+    step : float
+        h (time units).
+    rule : tuple of int
+        (m, q) of `duhamel_rule`.
+
+    Returns
+    -------
+    offsets, weights : ndarray, shape (m q,)
+        s_r in [0, h] and their weights (time units).
+    """
+    parts, count = rule
+    nodes, node_weights = np.polynomial.legendre.leggauss(count)
+    part = step / parts
+    offsets = (np.arange(parts)[:, None] + 0.5 * (nodes[None, :] + 1)).ravel() * part
+    return offsets, np.tile(0.5 * part * node_weights, parts)
 
 
 @functools.cache

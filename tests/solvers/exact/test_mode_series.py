@@ -19,7 +19,7 @@ from scipy.integrate import trapezoid
 from sim.physics.checks import load_scenario, with_keys
 from sim.solvers.common import sample_times
 from sim.solvers.exact.solver import ExactSolver
-from sim.solvers.exact.star import duhamel_rule, star_spectrum
+from sim.solvers.exact.star import duhamel_quadrature, duhamel_rule, star_spectrum
 
 from .test_level_amplitude import dense_amplitudes, random_star
 
@@ -134,15 +134,14 @@ def test_coarse_sectors_are_named_in_a_warning():
 
 @pytest.mark.parametrize("phase", [0.3, 4.0, 13.0, 19.9, 20.1, 55.0])
 def test_duhamel_rule_integrates_the_fastest_phase_to_rounding(phase):
-    # The rule of one step h must integrate exp(i w s) over [0, h] for every |w| up to the span
-    # W, against the closed form (exp(i w h) - 1) / (i w) (calculus), within 1e-13 h.
+    # The recurrence's nodes and weights on one step h must integrate exp(i w s) over [0, h] for
+    # every |w| up to the span W, against the closed form (exp(i w h) - 1) / (i w) (calculus),
+    # within 1e-13 h.
     step = 2.5
     eigenvalues = np.array([0.0, 0.4, phase / step])
     parts, nodes = duhamel_rule(eigenvalues, step)
-    x, w = np.polynomial.legendre.leggauss(nodes)
-    part = step / parts
-    offsets = ((np.arange(parts)[:, None] + 0.5 * (x + 1)).ravel()) * part
-    weights = np.tile(0.5 * part * w, parts)
+    offsets, weights = duhamel_quadrature(step, (parts, nodes))
+    assert offsets.min() > 0 and offsets.max() < step and abs(weights.sum() - step) < 1e-14 * step
     for frequency in np.linspace(0.05, 1.0, 40) * phase / step:
         exact = (np.exp(1j * frequency * step) - 1) / (1j * frequency)
         assert abs(np.exp(1j * frequency * offsets) @ weights - exact) <= 1e-13 * step
